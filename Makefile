@@ -1,0 +1,37 @@
+# Two commands matter: `make run` and `make test`. Everything else supports them.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+export CALIBRANT_DATABASE_URL ?= sqlite:///./var/calibrant.db
+
+.PHONY: run test lint bench venv migrate clean
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[dev]'
+	touch $(STAMP)
+
+venv: $(STAMP)
+
+migrate: $(STAMP)
+	mkdir -p var
+	$(BIN)/calibrant migrate
+
+run: migrate
+	$(BIN)/calibrant serve --host 127.0.0.1 --port 8000
+
+test: $(STAMP)
+	$(BIN)/ruff check service tests migrations
+	$(BIN)/python -m pytest
+
+lint: $(STAMP)
+	$(BIN)/ruff check service tests migrations
+
+bench: $(STAMP)
+	$(BIN)/python tests/bench/ingest.py
+	$(BIN)/python tests/bench/stats.py
+
+clean:
+	rm -rf $(VENV) var .pytest_cache
