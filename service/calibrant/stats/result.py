@@ -11,6 +11,8 @@ import math
 from dataclasses import dataclass, field
 from enum import StrEnum
 
+import numpy as np
+
 
 class Status(StrEnum):
     """Why a value is, or is not, there."""
@@ -34,24 +36,80 @@ class Estimate:
     se: float | None = None
     ci: tuple[float, float] | None = None
     n: float | None = None
-    extra: dict[str, float | int | None] = field(default_factory=dict)
+    extra: dict[str, float | int | str | None] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
-        for name in ("value", "se"):
+        for name in ("value", "se", "n"):
             v = getattr(self, name)
             if v is not None and not math.isfinite(v):
                 raise ValueError(f"{name} must be finite, got {v!r}")
         if self.ci is not None and not all(math.isfinite(b) for b in self.ci):
             raise ValueError(f"ci must be finite, got {self.ci!r}")
+        for key, v in self.extra.items():
+            if isinstance(v, float) and not math.isfinite(v):
+                raise ValueError(f"extra[{key!r}] must be finite, got {v!r}")
 
     @property
     def ok(self) -> bool:
         return self.status is Status.OK
 
 
-def missing(status: Status, reason: str, n: float | None = None) -> Estimate:
+def missing(
+    status: Status,
+    reason: str,
+    n: float | None = None,
+    extra: dict[str, float | int | str | None] | None = None,
+) -> Estimate:
     """An estimate with no value, stating why."""
-    return Estimate(value=None, status=status, reason=reason, n=n)
+    return Estimate(value=None, status=status, reason=reason, n=finite_or_none(n),
+                    extra=clean_extra(extra))
+
+
+def clean_extra(
+    extra: dict[str, float | int | str | None] | None,
+) -> dict[str, float | int | str | None]:
+    """Copy ``extra`` with floats passed through :func:`finite_or_none`, ints kept as ints."""
+    clean: dict[str, float | int | str | None] = {}
+    for key, v in (extra or {}).items():
+        if v is None or isinstance(v, str):
+            clean[key] = v
+        elif isinstance(v, bool | int | np.integer):
+            clean[key] = int(v)
+        else:
+            clean[key] = finite_or_none(v)
+    return clean
+
+
+def estimate(
+    value: float | None,
+    *,
+    se: float | None = None,
+    ci: tuple[float, float] | None = None,
+    n: float | None = None,
+    extra: dict[str, float | int | str | None] | None = None,
+    reason: str = "",
+    undefined_reason: str = "not finite for this input",
+) -> Estimate:
+    """Build an ``ok`` estimate, mapping every non-finite number to ``None``.
+
+    If ``value`` itself is not finite the result is ``undefined`` with
+    ``undefined_reason``; a non-finite ``se`` or ``ci`` bound just drops the
+    interval. ``extra`` values that are floats pass through
+    :func:`finite_or_none`; ints and strings are kept.
+    """
+    clean = clean_extra(extra)
+    nn = finite_or_none(n)
+    val = finite_or_none(value)
+    if val is None:
+        return Estimate(value=None, status=Status.UNDEFINED, reason=undefined_reason, n=nn,
+                        extra=clean)
+    s = finite_or_none(se)
+    interval = None
+    if ci is not None:
+        lo, hi = finite_or_none(ci[0]), finite_or_none(ci[1])
+        if lo is not None and hi is not None:
+            interval = (lo, hi)
+    return Estimate(value=val, se=s, ci=interval, n=nn, extra=clean, reason=reason)
 
 
 def finite_or_none(x: float | None) -> float | None:

@@ -1,0 +1,278 @@
+"""Calibration tests on arrays: observed/expected ratio, Spiegelhalter's z and
+the Hosmer–Lemeshow statistic.
+
+The logistic recalibration fits (calibration intercept and slope) live in
+:mod:`calibrant.stats.recalibration`; binned and smoothed calibration errors
+(ECE, MCE, ICI) in :mod:`calibrant.stats.calibration_error`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike
+from scipy import stats
+
+from calibrant.stats._binning import assign_bins
+from calibrant.stats._numerics import Z95, norm_two_sided_p, weighted_quantile
+from calibrant.stats._validation import as_labelled, check_n_bins
+from calibrant.stats.result import Estimate, Status, estimate, finite_or_none, missing
+
+__all__ = [
+    "HosmerLemeshow",
+    "hosmer_lemeshow",
+    "hosmer_lemeshow_from_groups",
+    "observed_expected",
+    "observed_expected_from_sums",
+    "spiegelhalter_from_sums",
+    "spiegelhalter_sums_from_power_sums",
+    "spiegelhalter_z",
+]
+
+
+# ----------------------------------------------------------------------------- O/E
+def observed_expected_from_sums(n: float, O: float, E: float, Spq: float) -> Estimate:  # noqa: E741 METHODS.md names O, E
+    """O/E with 95 % interval and the O − E z from n, O = Σy, E = Σp, Spq = Σp(1 − p)."""
+    if n <= 0:
+        return missing(Status.UNDEFINED, "empty window", n=0.0)
+    z = (O - E) / math.sqrt(Spq) if Spq > 0 else math.nan
+    extra = {"observed": O, "expected": E, "z": z,
+             "p_value": norm_two_sided_p(z) if math.isfinite(z) else None}
+    if not E > 0:
+        return missing(Status.UNDEFINED, "no expected events (every p is 0)", n=n, extra=extra)
+    oe = O / E
+    ci = None
+    reason = ""
+    if 0 < O < n:
+        half = Z95 * math.sqrt(max(1.0 / O - 1.0 / n, 0.0))
+        ci = (oe * math.exp(-half), oe * math.exp(half))
+    else:
+        reason = ("no log-scale interval when O = 0 or O = n; use an exact Poisson-binomial "
+                  "or bootstrap interval")
+    return estimate(oe, ci=ci, n=n, extra=extra, reason=reason)
+
+
+def observed_expected(
+    y_true: ArrayLike, y_proba: ArrayLike, *, sample_weight: ArrayLike | None = None
+) -> Estimate:
+    """Observed/expected event ratio O/E = Σy / Σp, with an approximate 95 % interval.
+
+    Interval: exp(ln(O/E) ± 1.96 sqrt(1/O − 1/n)) (E treated as fixed, O
+    binomial). ``extra``: O, E, and the calibration-in-the-large test
+    z = (O − E)/sqrt(Σ p(1 − p)) with its two-sided normal p-value (weight 1
+    in the score-test family of METHODS.md 0.3). O/E > 1: the model
+    under-predicts events.
+
+    Edge cases: empty or E = 0 → undefined; O ∈ {0, n}: value without
+    interval (reason says so).
+
+    Hand check: y = (1, 0), p = (0.2, 0.2): O/E = 2.5.
+
+    References: Debray et al. (2017), BMJ 356:i6460 [M, from memory] for the
+    variance form; METHODS.md section 3.
+    """
+    d = as_labelled(y_true, y_proba, sample_weight)
+    return observed_expected_from_sums(
+        d.n, d.n1, float(d.w @ d.p), float(d.w @ (d.p * (1.0 - d.p)))
+    )
+
+
+# ----------------------------------------------------------------------------- Spiegelhalter
+def spiegelhalter_sums_from_power_sums(  # noqa: PLR0917 sums in METHODS.md order
+    n1: float, S1_pos: float, S1: float, S2: float, S3: float, S4: float
+) -> tuple[float, float]:
+    """(numerator, null variance) of Spiegelhalter's z from power sums (summary path).
+
+    numerator = n1 − 2 Σ_{y=1} p − Σp + 2Σp²; variance = Σ(p − 5p² + 8p³ − 4p⁴)
+    = Σ (1 − 2p)² p(1 − p) [D, METHODS.md 4.1].
+    """
+    return n1 - 2.0 * S1_pos - S1 + 2.0 * S2, S1 - 5.0 * S2 + 8.0 * S3 - 4.0 * S4
+
+
+def spiegelhalter_from_sums(
+    numerator: float, variance: float, *, n: float | None = None, scale: float | None = None
+) -> Estimate:
+    """z_S = numerator / sqrt(variance), two-sided normal p-value in ``extra``.
+
+    ``scale`` (Σ p(1 − p), optional) guards the power-sum path: a variance below
+    1e-10·scale is cancellation noise (all p ≈ ½) and gives undefined.
+    """
+    floor = 0.0 if scale is None else 1e-10 * scale
+    if n is not None and n <= 0:
+        return missing(Status.UNDEFINED, "empty window", n=0.0)
+    if not variance > floor:
+        return missing(Status.UNDEFINED,
+                       "null variance is 0 (every p is ½, 0 or 1): the test is undefined", n=n)
+    z = numerator / math.sqrt(variance)
+    return estimate(z, n=n, extra={"p_value": norm_two_sided_p(z)})
+
+
+def spiegelhalter_z(
+    y_true: ArrayLike, y_proba: ArrayLike, *, sample_weight: ArrayLike | None = None
+) -> Estimate:
+    """Spiegelhalter's z test of calibration, two-sided normal p-value in ``extra``.
+
+        z_S = Σ (y_i − p_i)(1 − 2p_i) / sqrt( Σ (1 − 2p_i)² p_i(1 − p_i) )
+            = (BS − E0[BS]) / sqrt(Var0[BS]).
+
+    Limits: rows with p = ½ carry no weight and the weight changes sign at ½,
+    so a uniform shift of risks straddling ½ can cancel; use it with the O − E
+    test.
+
+    Edge cases: empty → undefined; all p ∈ {0, ½, 1} → null variance 0 → undefined.
+
+    Published check (Rufibach 2010, Table 1): y = (1, 0), p = (0.2, 0.2) → 1.06;
+    p = (0.4, 0.5) → 1.22.
+
+    References: Spiegelhalter (1986), Statistics in Medicine 5(5):421–433;
+    Rufibach (2010), J Clin Epidemiol 63(8):938–939; METHODS.md 4.1.
+    """
+    d = as_labelled(y_true, y_proba, sample_weight)
+    p, w = d.p, d.w
+    a = 1.0 - 2.0 * p
+    return spiegelhalter_from_sums(
+        float(w @ ((d.y - p) * a)), float(w @ (a * a * p * (1.0 - p))), n=d.n
+    )
+
+
+# ----------------------------------------------------------------------------- Hosmer–Lemeshow
+@dataclass(frozen=True, slots=True)
+class HosmerLemeshow:
+    """Hosmer–Lemeshow statistic with both reference distributions, labelled.
+
+    ``statistic`` is for context and comparability with clinical reporting, not
+    for alarms. ``p_value_development`` uses χ²_{g−2} (model fitted on these
+    data); ``p_value_external`` uses χ²_g (predictions from a model developed
+    elsewhere, the monitoring setting) [M: the choice is debated].
+    """
+
+    status: Status
+    reason: str
+    n: float
+    statistic: float | None = None
+    n_groups: int = 0
+    df_development: int = 0
+    p_value_development: float | None = None
+    df_external: int = 0
+    p_value_external: float | None = None
+    min_expected: float | None = None
+    table: tuple[tuple[float, float, float], ...] = ()  # (n_j, O_j, E_j)
+
+    @property
+    def ok(self) -> bool:
+        return self.status is Status.OK
+
+
+def hosmer_lemeshow_from_groups(
+    n_j: ArrayLike, o_j: ArrayLike, e_j: ArrayLike, *, min_expected: float = 10.0
+) -> HosmerLemeshow:
+    """Ĉ = Σ_j (O_j − E_j)² / (n_j p̄_j(1 − p̄_j)), p̄_j = E_j/n_j, from group totals.
+
+    Empty groups drop out. ``min_expected``: floor on min_j min(E_j, n_j − E_j)
+    (METHODS.md 9: ≥ 10 expected per group), else insufficient_data.
+    """
+    n_j, o_j, e_j = (np.asarray(a, dtype=np.float64) for a in (n_j, o_j, e_j))
+    keep = n_j > 0
+    n_j, o_j, e_j = n_j[keep], o_j[keep], e_j[keep]
+    n = float(n_j.sum())
+    g = int(n_j.size)
+    table = tuple((float(a), float(b), float(c)) for a, b, c in zip(n_j, o_j, e_j, strict=True))
+    if g < 3:
+        return HosmerLemeshow(Status.INSUFFICIENT_DATA, "fewer than 3 non-empty groups", n,
+                              n_groups=g, table=table)
+    pbar = e_j / n_j
+    denom = n_j * pbar * (1.0 - pbar)
+    min_exp = float(np.min(np.minimum(e_j, n_j - e_j)))
+    if np.any(denom <= 0):
+        return HosmerLemeshow(Status.UNDEFINED, "a group has mean risk 0 or 1", n, n_groups=g,
+                              min_expected=min_exp, table=table)
+    if min_exp < min_expected:
+        return HosmerLemeshow(
+            Status.INSUFFICIENT_DATA,
+            f"a group has fewer than {min_expected:g} expected events or non-events",
+            n, n_groups=g, min_expected=min_exp, table=table)
+    c = float(np.sum((o_j - e_j) ** 2 / denom))
+    if finite_or_none(c) is None:
+        return HosmerLemeshow(Status.UNDEFINED, "not finite for this input", n, n_groups=g,
+                              table=table)
+    return HosmerLemeshow(
+        Status.OK, "", n, statistic=c, n_groups=g,
+        df_development=g - 2, p_value_development=float(stats.chi2.sf(c, g - 2)),
+        df_external=g, p_value_external=float(stats.chi2.sf(c, g)),
+        min_expected=min_exp, table=table)
+
+
+def _equal_count_groups(p: np.ndarray, w: np.ndarray, y: np.ndarray, g: int):
+    """Group totals of ``np.array_split`` of the sorted (weight-repeated) data into g groups.
+
+    A row of weight w occupies positions [c − w, c) of the repeated sorted data
+    (c = cumulative weight); each group takes the overlap of its position range
+    with every row, so integer weights give exactly the repeated-row answer.
+    """
+    order = np.argsort(p, kind="mergesort")
+    ps, ws, ys = p[order], w[order], y[order]
+    cum = np.concatenate([[0.0], np.cumsum(ws)])
+    N = cum[-1]
+    if float(N).is_integer():
+        q, r = divmod(int(N), g)  # array_split: the first r groups get one extra row
+        sizes = np.array([q + 1] * r + [q] * (g - r), dtype=np.float64)
+        bounds = np.concatenate([[0.0], np.cumsum(sizes)])
+    else:
+        bounds = np.linspace(0.0, N, g + 1)
+
+    def cumulative(values: np.ndarray) -> np.ndarray:
+        # Σ over positions < t of the per-position value, at every bound t
+        cv = np.concatenate([[0.0], np.cumsum(ws * values)])
+        i = np.clip(np.searchsorted(cum, bounds, side="right") - 1, 0, ps.size - 1)
+        return cv[i] + (bounds - cum[i]) * values[i]
+
+    ones = np.ones_like(ps)
+    n_j, o_j, e_j = (np.diff(cumulative(v)) for v in (ones, ys, ps))
+    return n_j, o_j, e_j
+
+
+def hosmer_lemeshow(
+    y_true: ArrayLike,
+    y_proba: ArrayLike,
+    *,
+    sample_weight: ArrayLike | None = None,
+    n_bins: int = 10,
+    grouping: str = "equal_count",
+    min_expected: float = 10.0,
+) -> HosmerLemeshow:
+    """Hosmer–Lemeshow goodness-of-fit statistic over g = ``n_bins`` risk groups.
+
+        Ĉ = Σ_j (O_j − E_j)² / (n_j p̄_j (1 − p̄_j)),   E_j = Σ_{i∈j} p_i,  p̄_j = E_j/n_j.
+
+    ``grouping="equal_count"`` (default): sort by p (stable) and split into g
+    near-equal groups like ``np.array_split`` (weights split a row across
+    groups where needed, so integer weights = repeated rows);
+    ``grouping="quantile"``: groups between (weighted) quantiles of p,
+    right-closed. Software differs here; with continuous p they agree.
+    Both df are reported and labelled (see :class:`HosmerLemeshow`).
+
+    Edge cases: fewer than 3 non-empty groups → insufficient_data; a group
+    with mean risk 0 or 1 → undefined; a group below ``min_expected`` expected
+    events or non-events → insufficient_data (pass 0 to compute anyway). It
+    rejects for negligible miscalibration at large n and has little power at
+    small n; Van Calster et al. (2019) advise against it.
+
+    References: Hosmer & Lemeshow (1980), Communications in Statistics –
+    Theory and Methods 9(10):1043–1069; METHODS.md 4.2.
+    """
+    g = check_n_bins(n_bins)
+    if grouping not in ("equal_count", "quantile"):
+        raise ValueError(f"grouping must be 'equal_count' or 'quantile', got {grouping!r}")
+    d = as_labelled(y_true, y_proba, sample_weight)
+    if d.n <= 0:
+        return HosmerLemeshow(Status.UNDEFINED, "empty window", 0.0)
+    if grouping == "equal_count":
+        n_j, o_j, e_j = _equal_count_groups(d.p, d.w, d.y, g)
+    else:
+        qe = weighted_quantile(d.p, np.linspace(0.0, 1.0, g + 1), d.w)
+        ids = assign_bins(d.p, qe, closed="right")
+        n_j, o_j, e_j = (np.bincount(ids, weights=v, minlength=g)
+                         for v in (d.w, d.w * d.y, d.w * d.p))
+    return hosmer_lemeshow_from_groups(n_j, o_j, e_j, min_expected=min_expected)

@@ -1,0 +1,339 @@
+"""Logistic recalibration: calibration-in-the-large intercept (slope fixed at 1),
+calibration slope and the free-slope recalibration intercept, Cox's
+likelihood-ratio tests. Newton–Raphson in numpy, standard errors from the
+inverse Fisher information.
+
+Each function has a ``*_from_logits`` twin taking the (clipped) logits x
+directly; the mergeable summary passes bin-mean logits with class counts as
+frequency weights (METHODS.md 3, "From the bucket").
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike
+from scipy import stats
+from scipy.special import expit
+
+from calibrant.stats._numerics import Z95, clipped_logit, norm_two_sided_p
+from calibrant.stats._validation import as_labelled, as_scores
+from calibrant.stats.result import Estimate, Status, estimate, missing
+
+__all__ = [
+    "MIN_EVENTS_SLOPE",
+    "Recalibration",
+    "RecalibrationTests",
+    "calibration_intercept",
+    "calibration_intercept_from_logits",
+    "calibration_slope",
+    "logistic_recalibration",
+    "logistic_recalibration_from_logits",
+    "recalibration_intercept",
+    "recalibration_tests",
+    "recalibration_tests_from_logits",
+]
+
+#: hard floor of events and of non-events for the slope fit (METHODS.md 9; ≥ 100 recommended)
+MIN_EVENTS_SLOPE = 20
+#: logits beyond ±16 are counted as high-leverage points (METHODS.md 3)
+EXTREME_LOGIT = 16.0
+
+
+@dataclass(frozen=True, slots=True)
+class _Fit:
+    params: np.ndarray
+    cov: np.ndarray
+    loglik: float
+    n_iter: int
+
+
+def _loglik(eta: np.ndarray, y: np.ndarray, w: np.ndarray) -> float:
+    # Σ w [y η − log(1 + e^η)], with logaddexp for overflow-free softplus
+    return float(w @ (y * eta - np.logaddexp(0.0, eta)))
+
+
+def _newton(
+    X: np.ndarray, y: np.ndarray, w: np.ndarray, offset: np.ndarray, *, max_iter: int = 100,
+    tol: float = 1e-10, max_abs_param: float = 1e3,
+) -> _Fit | None:
+    """Maximum-likelihood logistic fit by Newton–Raphson with step halving.
+
+    Returns ``None`` on divergence (separation): no convergence within
+    ``max_iter``, a parameter beyond ``max_abs_param``, or a singular or
+    ill-conditioned (condition number > 1e12) information matrix.
+    """
+    beta = np.zeros(X.shape[1])
+    if X.shape[1] == 2:
+        beta[1] = 1.0  # start at "calibrated": intercept 0, slope 1
+    eta = X @ beta + offset
+    ll = _loglik(eta, y, w)
+    for it in range(1, max_iter + 1):
+        pi = expit(eta)
+        info = X.T @ (X * (w * pi * (1.0 - pi))[:, None])
+        score = X.T @ (w * (y - pi))
+        try:
+            if np.linalg.cond(info) > 1e12:
+                return None
+            step = np.linalg.solve(info, score)
+        except np.linalg.LinAlgError:
+            return None
+        t = 1.0
+        for _ in range(40):  # halve the step until the log-likelihood does not decrease
+            new = beta + t * step
+            eta_new = X @ new + offset
+            ll_new = _loglik(eta_new, y, w)
+            if ll_new >= ll - 1e-12 * (1.0 + abs(ll)):
+                break
+            t *= 0.5
+        beta, eta, ll = new, eta_new, ll_new
+        if not np.all(np.abs(beta) < max_abs_param):
+            return None
+        if np.max(np.abs(t * step)) < tol * (1.0 + np.max(np.abs(beta))):
+            pi = expit(eta)
+            info = X.T @ (X * (w * pi * (1.0 - pi))[:, None])
+            if np.linalg.cond(info) > 1e12:
+                return None
+            return _Fit(beta, np.linalg.inv(info), ll, it)
+    return None
+
+
+def _undefined_classes(n1: float, n0: float) -> str | None:
+    if n1 + n0 <= 0:
+        return "empty window"
+    if n1 <= 0 or n0 <= 0:
+        return "one class only: the maximum-likelihood estimate does not exist"
+    return None
+
+
+# ----------------------------------------------------------------------------- CITL
+def calibration_intercept_from_logits(
+    y_true: ArrayLike, logits: ArrayLike, *, sample_weight: ArrayLike | None = None
+) -> Estimate:
+    """:func:`calibration_intercept` with the model's logits x given directly."""
+    d = as_labelled(y_true, np.zeros(np.shape(logits)), sample_weight)
+    x = as_scores(logits, sample_weight, name="logits", check_unit_interval=False).p
+    return _citl(d.y, x, d.w, d.n1, d.n0)
+
+
+def _citl(y: np.ndarray, x: np.ndarray, w: np.ndarray, n1: float, n0: float) -> Estimate:
+    why = _undefined_classes(n1, n0)
+    if why:
+        return missing(Status.UNDEFINED, why, n=n1 + n0)
+    fit = _newton(np.ones((x.size, 1)), y, w, x)
+    if fit is None:
+        return missing(Status.INSUFFICIENT_DATA, "the offset fit did not converge", n=n1 + n0)
+    a, se = float(fit.params[0]), math.sqrt(fit.cov[0, 0])
+    ll0 = _loglik(x, y, w)
+    lr = max(2.0 * (fit.loglik - ll0), 0.0)
+    return estimate(a, se=se, ci=(a - Z95 * se, a + Z95 * se), n=n1 + n0, extra={
+        "p_value_wald": norm_two_sided_p(a / se), "lr_statistic": lr,
+        "p_value_lr": float(stats.chi2.sf(lr, 1)), "n_iter": fit.n_iter})
+
+
+def calibration_intercept(
+    y_true: ArrayLike, y_proba: ArrayLike, *, sample_weight: ArrayLike | None = None
+) -> Estimate:
+    """Calibration-in-the-large intercept â (logistic model with the logit as offset).
+
+    Fit logit P(y = 1) = a + x_i with x_i = logit(p_i) (clipped at ε) as an
+    offset (slope fixed at 1); â solves Σ y = Σ expit(x_i + a): the shift of
+    all logits that makes predicted and observed events agree.
+    SE = 1/sqrt(Σ π̂(1 − π̂)) (inverse Fisher information); Wald 95 % interval.
+    ``extra``: Wald p-value, likelihood-ratio statistic 2(ℓ_a − ℓ_0) and its
+    χ²₁ p-value. This is *not* the intercept of the free-slope model
+    (:func:`recalibration_intercept`).
+
+    Edge cases: empty or one class → undefined (the MLE does not exist).
+
+    References: Van Calster et al. (2016), J Clin Epidemiol 74:167–176;
+    Van Calster et al. (2019), BMC Medicine 17:230; METHODS.md section 3.
+    Same numbers as statsmodels ``GLM(y, 1, Binomial(), offset=x)``.
+    """
+    d = as_labelled(y_true, y_proba, sample_weight)
+    return _citl(d.y, clipped_logit(d.p), d.w, d.n1, d.n0)
+
+
+# ----------------------------------------------------------------------------- slope
+@dataclass(frozen=True, slots=True)
+class Recalibration:
+    """Logistic recalibration logit P(y = 1) = α + β x: both coefficients and their covariance."""
+
+    slope: Estimate
+    intercept: Estimate
+    cov_intercept_slope: float | None = None
+    n_extreme_logits: float = 0
+    slope_winsorised_16: float | None = None  # sensitivity fit with x clipped to ±16
+
+
+def _separated(x: np.ndarray, y: np.ndarray) -> bool:
+    # with one covariate and a free intercept the MLE is infinite iff the classes' x ranges
+    # do not overlap (complete or quasi-complete separation)
+    x1, x0 = x[y == 1.0], x[y == 0.0]
+    return bool(x1.min() >= x0.max() or x1.max() <= x0.min())
+
+
+def logistic_recalibration_from_logits(
+    y_true: ArrayLike, logits: ArrayLike, *, sample_weight: ArrayLike | None = None,
+    min_events: int = MIN_EVENTS_SLOPE,
+) -> Recalibration:
+    """:func:`logistic_recalibration` with the model's logits given directly."""
+    d = as_labelled(y_true, np.zeros(np.shape(logits)), sample_weight)
+    x = as_scores(logits, sample_weight, name="logits", check_unit_interval=False).p
+    return _recal(d.y, x, d.w, d.n1, d.n0, min_events)
+
+
+def _recal(  # noqa: PLR0917 private kernel
+    y, x, w, n1: float, n0: float, min_events: int) -> Recalibration:
+    n = n1 + n0
+    why = _undefined_classes(n1, n0)
+    if why:
+        m = missing(Status.UNDEFINED, why, n=n)
+        return Recalibration(m, m)
+    if n1 < min_events or n0 < min_events:
+        m = missing(Status.INSUFFICIENT_DATA,
+                    f"need at least {min_events} events and {min_events} non-events "
+                    f"(have {n1:g} and {n0:g})", n=n)
+        return Recalibration(m, m)
+    if _separated(x, y):
+        m = missing(Status.INSUFFICIENT_DATA,
+                    "events and non-events are separated by the score: the slope is infinite", n=n)
+        return Recalibration(m, m)
+    X = np.column_stack([np.ones_like(x), x])
+    fit = _newton(X, y, w, np.zeros_like(x))
+    if fit is None:
+        m = missing(Status.INSUFFICIENT_DATA,
+                    "the recalibration fit diverged (near-separation)", n=n)
+        return Recalibration(m, m)
+    extreme = np.abs(x) > EXTREME_LOGIT
+    n_ext = float(w[extreme].sum())
+    wins = None
+    if n_ext > 0:
+        xw = np.clip(x, -EXTREME_LOGIT, EXTREME_LOGIT)
+        fw = _newton(np.column_stack([np.ones_like(xw), xw]), y, w, np.zeros_like(xw))
+        wins = float(fw.params[1]) if fw is not None else None
+    (a, b), cov = fit.params, fit.cov
+    se_a, se_b = math.sqrt(cov[0, 0]), math.sqrt(cov[1, 1])
+    common = {"n_iter": fit.n_iter, "n_extreme_logits": n_ext}
+    slope = estimate(b, se=se_b, ci=(b - Z95 * se_b, b + Z95 * se_b), n=n, extra={
+        **common, "p_value_wald_slope_eq_1": norm_two_sided_p((b - 1.0) / se_b),
+        "slope_winsorised_16": wins, "intercept": float(a)})
+    inter = estimate(a, se=se_a, ci=(a - Z95 * se_a, a + Z95 * se_a), n=n, extra={
+        **common, "p_value_wald": norm_two_sided_p(a / se_a), "slope": float(b)})
+    return Recalibration(slope, inter, float(cov[0, 1]), n_ext, wins)
+
+
+def logistic_recalibration(
+    y_true: ArrayLike, y_proba: ArrayLike, *, sample_weight: ArrayLike | None = None,
+    min_events: int = MIN_EVENTS_SLOPE,
+) -> Recalibration:
+    """Logistic recalibration (Cox 1958): fit logit P(y = 1) = α + β x, x = logit(p).
+
+    β is the calibration slope (β < 1: predictions too extreme, β > 1: too
+    moderate); α the log-odds correction at p = ½ with the slope free — not
+    calibration-in-the-large. Newton–Raphson (start α = 0, β = 1, step halving,
+    convergence 1e-10), covariance = inverse Fisher information
+    I = Σ π̂(1 − π̂)[1, x; x, x²]; Wald 95 % intervals. Logits beyond ±16
+    (after ε-clipping up to ±36) are high-leverage: their weight is
+    ``n_extreme_logits`` and ``slope_winsorised_16`` is the sensitivity fit.
+
+    Edge cases: empty or one class → undefined; fewer than ``min_events``
+    events or non-events (METHODS.md 9: hard floor 20) → insufficient_data;
+    separated classes or a diverging fit → insufficient_data (statsmodels
+    would return huge coefficients and SEs there).
+
+    References: Cox (1958), Biometrika 45(3/4):562–565 [M, from memory];
+    Van Calster et al. (2016), J Clin Epidemiol 74:167–176; METHODS.md
+    section 3. Same numbers as statsmodels ``Logit(y, [1, x])``.
+    """
+    d = as_labelled(y_true, y_proba, sample_weight)
+    return _recal(d.y, clipped_logit(d.p), d.w, d.n1, d.n0, min_events)
+
+
+def calibration_slope(
+    y_true: ArrayLike, y_proba: ArrayLike, *, sample_weight: ArrayLike | None = None,
+    min_events: int = MIN_EVENTS_SLOPE,
+) -> Estimate:
+    """Calibration slope β̂ of the logistic recalibration; see :func:`logistic_recalibration`.
+
+    References: Cox (1958) [M, from memory]; Van Calster et al. (2016).
+    """
+    return logistic_recalibration(
+        y_true, y_proba, sample_weight=sample_weight, min_events=min_events).slope
+
+
+def recalibration_intercept(
+    y_true: ArrayLike, y_proba: ArrayLike, *, sample_weight: ArrayLike | None = None,
+    min_events: int = MIN_EVENTS_SLOPE,
+) -> Estimate:
+    """Free-slope intercept α̂ of the logistic recalibration (not calibration-in-the-large).
+
+    See :func:`logistic_recalibration`. References: Cox (1958) [M, from memory];
+    Van Calster et al. (2016), J Clin Epidemiol 74:167–176.
+    """
+    return logistic_recalibration(
+        y_true, y_proba, sample_weight=sample_weight, min_events=min_events).intercept
+
+
+# ----------------------------------------------------------------------------- Cox LR tests
+@dataclass(frozen=True, slots=True)
+class RecalibrationTests:
+    """Likelihood-ratio tests: joint α = 0, β = 1 (χ²₂); CITL (χ²₁); slope = 1 given α (χ²₁)."""
+
+    joint: Estimate
+    calibration_in_the_large: Estimate
+    slope_given_intercept: Estimate
+
+
+def recalibration_tests_from_logits(
+    y_true: ArrayLike, logits: ArrayLike, *, sample_weight: ArrayLike | None = None,
+    min_events: int = MIN_EVENTS_SLOPE,
+) -> RecalibrationTests:
+    """:func:`recalibration_tests` with the model's logits given directly."""
+    d = as_labelled(y_true, np.zeros(np.shape(logits)), sample_weight)
+    x = as_scores(logits, sample_weight, name="logits", check_unit_interval=False).p
+    return _tests(d.y, x, d.w, d.n1, d.n0, min_events)
+
+
+def _lr(stat: float, df: int, n: float) -> Estimate:
+    stat = max(stat, 0.0)
+    return estimate(stat, n=n, extra={"df": df, "p_value": float(stats.chi2.sf(stat, df))})
+
+
+def _tests(  # noqa: PLR0917 private kernel
+    y, x, w, n1: float, n0: float, min_events: int) -> RecalibrationTests:
+    n = n1 + n0
+    ll0 = _loglik(x, y, w)
+    citl = _citl(y, x, w, n1, n0)
+    if not citl.ok:
+        m = missing(citl.status, citl.reason, n=n)
+        return RecalibrationTests(m, m, m)
+    ll_a = ll0 + float(citl.extra["lr_statistic"]) / 2.0  # type: ignore[arg-type]
+    c = _lr(2.0 * (ll_a - ll0), 1, n)
+    rec = _recal(y, x, w, n1, n0, min_events)
+    if not rec.slope.ok:
+        m = missing(rec.slope.status, rec.slope.reason, n=n)
+        return RecalibrationTests(m, c, m)
+    ll_ab = _loglik(rec.intercept.value + rec.slope.value * x, y, w)  # type: ignore[operator]
+    return RecalibrationTests(_lr(2.0 * (ll_ab - ll0), 2, n), c, _lr(2.0 * (ll_ab - ll_a), 1, n))
+
+
+def recalibration_tests(
+    y_true: ArrayLike, y_proba: ArrayLike, *, sample_weight: ArrayLike | None = None,
+    min_events: int = MIN_EVENTS_SLOPE,
+) -> RecalibrationTests:
+    """Cox's likelihood-ratio tests of the recalibration model, χ² p-values in ``extra``.
+
+    With ℓ_0 the log-likelihood of p as is, ℓ_a of the offset (CITL) fit and
+    ℓ_ab of the free (α, β) fit: 2(ℓ_ab − ℓ_0) ~ χ²₂ (α = 0 and β = 1),
+    2(ℓ_a − ℓ_0) ~ χ²₁ (calibration-in-the-large), 2(ℓ_ab − ℓ_a) ~ χ²₁
+    (slope = 1 given a free intercept). Tests needing the slope fit inherit its
+    floors (:func:`logistic_recalibration`).
+
+    References: Cox (1958), Biometrika 45(3/4):562–565 [M, from memory];
+    METHODS.md section 3.
+    """
+    d = as_labelled(y_true, y_proba, sample_weight)
+    return _tests(d.y, clipped_logit(d.p), d.w, d.n1, d.n0, min_events)
