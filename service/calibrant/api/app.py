@@ -1,0 +1,63 @@
+"""``create_app(settings)``: the only way to build the HTTP application."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI
+from sqlalchemy import Engine
+
+import calibrant
+from calibrant.api import problems
+from calibrant.api.routes import health, ingest, models
+from calibrant.api.runtime import Runtime
+from calibrant.api.schemas import add_body_schemas
+from calibrant.clock import Clock, SystemClock
+from calibrant.config import Settings
+from calibrant.store.engine import make_engine, make_session_factory
+
+DESCRIPTION = """Calibrant joins the probabilities your deployed binary classifiers emit with the
+outcomes that arrive later, and reports how honest those probabilities still are.
+
+Monitoring signals support, and do not replace, model validation, local regulation and
+qualified review where decisions affect people."""
+
+
+def create_app(
+    settings: Settings, *, engine: Engine | None = None, clock: Clock | None = None
+) -> FastAPI:
+    owns_engine = engine is None
+    engine = engine or make_engine(settings)
+    runtime = Runtime(
+        settings=settings,
+        engine=engine,
+        sessions=make_session_factory(engine),
+        clock=clock or SystemClock(),
+    )
+
+    @asynccontextmanager
+    async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
+        yield
+        if owns_engine:
+            engine.dispose()
+
+    app = FastAPI(
+        title="Calibrant",
+        version=calibrant.__version__,
+        description=DESCRIPTION,
+        lifespan=lifespan,
+    )
+    app.state.runtime = runtime
+    problems.install(app)
+    app.include_router(health.router)
+    app.include_router(ingest.router)
+    app.include_router(models.router)
+
+    def openapi() -> dict:
+        if app.openapi_schema is None:
+            app.openapi_schema = add_body_schemas(FastAPI.openapi(app))
+        return app.openapi_schema
+
+    app.openapi = openapi  # type: ignore[method-assign]  # FastAPI's documented extension point
+    return app

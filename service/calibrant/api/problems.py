@@ -1,0 +1,53 @@
+"""Every error leaves as an RFC 9457 problem document (application/problem+json)."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from calibrant.errors import CalibrantError
+
+log = logging.getLogger("calibrant.api")
+PROBLEM_TYPE_BASE = "https://calibrant.invalid/problems/"
+MEDIA_TYPE = "application/problem+json"
+
+
+def problem(status: int, title: str, detail: str, slug: str, **extra: Any) -> JSONResponse:
+    body = {"type": PROBLEM_TYPE_BASE + slug, "title": title, "status": status, "detail": detail}
+    body.update(extra)
+    headers = {"WWW-Authenticate": "Bearer"} if status == 401 else None
+    return JSONResponse(body, status_code=status, media_type=MEDIA_TYPE, headers=headers)
+
+
+def install(app: FastAPI) -> None:
+    @app.exception_handler(CalibrantError)
+    async def _ours(_request: Request, exc: CalibrantError) -> JSONResponse:
+        if exc.status >= 500:
+            log.exception("internal error", exc_info=exc)
+        return problem(exc.status, exc.title, exc.detail, exc.slug, **exc.extensions())
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation(_request: Request, exc: RequestValidationError) -> JSONResponse:
+        errors = [
+            {
+                "index": None,
+                "field": ".".join(str(p) for p in err["loc"][1:]) or str(err["loc"][0]),
+                "message": err["msg"],
+            }
+            for err in exc.errors()
+        ]
+        return problem(422, "Invalid input", "the request is invalid", "invalid-input", errors=errors)
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http(_request: Request, exc: StarletteHTTPException) -> JSONResponse:
+        return problem(exc.status_code, str(exc.detail), str(exc.detail), f"http-{exc.status_code}")
+
+    @app.exception_handler(Exception)
+    async def _unexpected(_request: Request, exc: Exception) -> JSONResponse:
+        log.exception("unhandled error", exc_info=exc)
+        return problem(500, "Internal error", "an unexpected error occurred; it was logged", "internal")

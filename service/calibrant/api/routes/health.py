@@ -1,0 +1,34 @@
+"""Liveness and database reachability."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Request
+from fastapi.responses import JSONResponse
+from sqlalchemy import text
+from sqlalchemy.exc import SQLAlchemyError
+from starlette.concurrency import run_in_threadpool
+
+from calibrant.api.runtime import Runtime
+from calibrant.api.schemas import Health
+
+router = APIRouter(tags=["health"])
+
+
+@router.get("/healthz", response_model=Health, summary="Is the service able to store data?")
+async def healthz(request: Request) -> JSONResponse:
+    runtime: Runtime = request.app.state.runtime
+
+    def probe() -> str | None:
+        try:
+            with runtime.engine.connect() as conn:
+                conn.execute(text("SELECT 1"))
+        except SQLAlchemyError as exc:
+            return type(exc).__name__
+        return None
+
+    error = await run_in_threadpool(probe)
+    if error:
+        health = Health(status="degraded", database="unreachable", detail={"error": error})
+        return JSONResponse(health.model_dump(), status_code=503)
+    health = Health(status="ok", database="ok", detail={"dialect": runtime.engine.dialect.name})
+    return JSONResponse(health.model_dump())

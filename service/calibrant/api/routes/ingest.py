@@ -1,0 +1,72 @@
+"""POST predictions and outcomes. Bodies are read raw and validated column-wise."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Depends, Request
+
+from calibrant.api.auth import Principal, requires
+from calibrant.api.body import read_capped
+from calibrant.api.runtime import Runtime
+from calibrant.api.schemas import (
+    PROBLEM_RESPONSES,
+    OutcomeBatchIn,
+    OutcomesAccepted,
+    PredictionBatchIn,
+    PredictionsAccepted,
+    request_body,
+)
+from calibrant.ingest import service
+from calibrant.store.keys_repo import Scope
+
+router = APIRouter(prefix="/v1/models/{model}", tags=["ingest"])
+IngestCaller = Annotated[Principal, Depends(requires(Scope.INGEST))]
+
+
+@router.post(
+    "/predictions",
+    response_model=PredictionsAccepted,
+    openapi_extra=request_body(PredictionBatchIn),
+    responses={**PROBLEM_RESPONSES, 409: {"description": "Same (version, id), different content."}},
+    summary="Store scored cases (all or nothing; re-posts are harmless)",
+)
+async def post_predictions(model: str, request: Request, caller: IngestCaller) -> PredictionsAccepted:
+    runtime: Runtime = request.app.state.runtime
+    body = await read_capped(request, runtime.settings.max_body_bytes)
+    result = await runtime.run(
+        lambda session: service.ingest_predictions(
+            session,
+            model,
+            body,
+            max_items=runtime.settings.max_batch_items,
+            clock=runtime.clock,
+            actor=caller.actor,
+        )
+    )
+    return PredictionsAccepted(accepted=result.accepted, duplicates=result.duplicates)
+
+
+@router.post(
+    "/outcomes",
+    response_model=OutcomesAccepted,
+    openapi_extra=request_body(OutcomeBatchIn),
+    responses=PROBLEM_RESPONSES,
+    summary="Store true outcomes of cases (new, duplicate or correction)",
+)
+async def post_outcomes(model: str, request: Request, caller: IngestCaller) -> OutcomesAccepted:
+    runtime: Runtime = request.app.state.runtime
+    body = await read_capped(request, runtime.settings.max_body_bytes)
+    result = await runtime.run(
+        lambda session: service.ingest_outcomes(
+            session,
+            model,
+            body,
+            max_items=runtime.settings.max_batch_items,
+            clock=runtime.clock,
+            actor=caller.actor,
+        )
+    )
+    return OutcomesAccepted(
+        accepted=result.accepted, duplicates=result.duplicates, corrected=result.corrected
+    )

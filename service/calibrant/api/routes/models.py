@@ -1,0 +1,119 @@
+"""Models: settings (PUT, merge), listing, one model with counts, one case."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+import orjson
+from fastapi import APIRouter, Depends, Request, Response
+
+from calibrant.api.auth import Principal, requires
+from calibrant.api.body import read_capped
+from calibrant.api.runtime import Runtime
+from calibrant.api.schemas import (
+    PROBLEM_RESPONSES,
+    CaseOut,
+    CaseOutcome,
+    CasePrediction,
+    ModelCountsOut,
+    ModelList,
+    ModelOut,
+    request_body,
+)
+from calibrant.models import service
+from calibrant.models.settings import ModelSettingsPatch
+from calibrant.store import models_repo
+from calibrant.store.keys_repo import Scope
+from calibrant.store.tables import Model
+
+router = APIRouter(prefix="/v1/models", tags=["models"])
+Reader = Annotated[Principal, Depends(requires(Scope.READ))]
+Admin = Annotated[Principal, Depends(requires(Scope.ADMIN))]
+
+
+def _model_out(model: Model, counts: models_repo.ModelCounts | None = None) -> ModelOut:
+    return ModelOut(
+        name=model.name,
+        **service.settings_of(model),
+        created_at=model.created_at,
+        updated_at=model.updated_at,
+        counts=ModelCountsOut(
+            predictions=counts.predictions, outcomes=counts.outcomes, labeled=counts.labeled
+        )
+        if counts
+        else None,
+    )
+
+
+@router.get("", response_model=ModelList, summary="All models")
+async def list_models(request: Request, _caller: Reader) -> ModelList:
+    runtime: Runtime = request.app.state.runtime
+    models = await runtime.run(models_repo.list_all)
+    return ModelList(models=[_model_out(m) for m in models], count=len(models))
+
+
+@router.put(
+    "/{model}",
+    response_model=ModelOut,
+    openapi_extra=request_body(ModelSettingsPatch),
+    responses={**PROBLEM_RESPONSES, 201: {"description": "Created with these settings."}},
+    summary="Create a model or change its settings (absent fields unchanged)",
+)
+async def put_model(model: str, request: Request, response: Response, caller: Admin) -> ModelOut:
+    runtime: Runtime = request.app.state.runtime
+    body = await read_capped(request, 1024 * 1024)
+
+    def work(session):
+        row, created = service.put_settings(
+            session, model, body, clock=runtime.clock, actor=caller.actor
+        )
+        return _model_out(row, models_repo.counts(session, row.id)), created
+
+    out, created = await runtime.run(work)
+    if created:
+        response.status_code = 201
+    return out
+
+
+@router.get("/{model}", response_model=ModelOut, responses=PROBLEM_RESPONSES, summary="One model")
+async def get_model(model: str, request: Request, _caller: Reader) -> ModelOut:
+    runtime: Runtime = request.app.state.runtime
+
+    def work(session):
+        row = service.require(session, model)
+        return _model_out(row, models_repo.counts(session, row.id))
+
+    return await runtime.run(work)
+
+
+@router.get(
+    "/{model}/cases/{case_id}",
+    response_model=CaseOut,
+    responses=PROBLEM_RESPONSES,
+    summary="A case: every version's prediction, its outcome and label history",
+)
+async def get_case(model: str, case_id: str, request: Request, _caller: Reader) -> CaseOut:
+    runtime: Runtime = request.app.state.runtime
+    record = await runtime.run(lambda session: service.case_record(session, model, case_id))
+    return CaseOut(
+        model=model,
+        id=case_id,
+        predictions=[
+            CasePrediction(
+                version=p.version,
+                probability=p.probability,
+                scored_at=p.scored_at,
+                tags=orjson.loads(p.tags) if p.tags else {},
+                received_at=p.received_at,
+            )
+            for p in record.predictions
+        ],
+        outcome=_outcome(record.outcome) if record.outcome else None,
+        history=[_outcome(h) for h in record.history],
+    )
+
+
+def _outcome(row) -> CaseOutcome:
+    return CaseOutcome(
+        label=row.label, observed_at=row.observed_at, received_at=row.received_at, revision=row.revision
+    )

@@ -1,0 +1,139 @@
+"""HTTP schemas for the OpenAPI document and responses.
+
+Ingest bodies are validated column-wise by ``ingest.batch`` for speed; the
+request models here describe the same rules so /docs stays accurate.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+
+class PredictionIn(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    id: str = Field(min_length=1, max_length=200, description="The client's case id.")
+    probability: float = Field(ge=0, le=1, description="Probability of the positive class.")
+    scored_at: datetime = Field(description="RFC 3339 with offset; naive times are rejected.")
+    version: str = Field("default", min_length=1, max_length=64)
+    tags: dict[str, str] | None = Field(
+        None, max_length=16, description="Flat string map; keys 1-64 of [A-Za-z0-9_.-], values <= 128."
+    )
+
+
+class PredictionBatchIn(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    predictions: list[PredictionIn] = Field(max_length=10_000)
+
+
+class OutcomeIn(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    id: str = Field(min_length=1, max_length=200)
+    label: Literal[0, 1] | bool
+    observed_at: datetime = Field(description="RFC 3339 with offset.")
+
+
+class OutcomeBatchIn(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    outcomes: list[OutcomeIn] = Field(max_length=10_000)
+
+
+class PredictionsAccepted(BaseModel):
+    accepted: int = Field(description="New predictions stored.")
+    duplicates: int = Field(description="Identical re-posts, stored already; nothing changed.")
+
+
+class OutcomesAccepted(BaseModel):
+    accepted: int = Field(description="Cases that got their first label.")
+    duplicates: int = Field(description="The same label again; nothing changed.")
+    corrected: int = Field(description="A different label: replaced, the old one kept in history.")
+
+
+class ModelCountsOut(BaseModel):
+    predictions: int
+    outcomes: int
+    labeled: int = Field(description="Predictions that have an outcome.")
+
+
+class ModelOut(BaseModel):
+    name: str
+    description: str
+    outcome_horizon_days: int | None
+    outcome_lag_days: int
+    implicit_negatives: bool
+    segment_keys: list[str]
+    reference: dict[str, Any] | None
+    created_at: datetime
+    updated_at: datetime
+    counts: ModelCountsOut | None = None
+
+
+class ModelList(BaseModel):
+    models: list[ModelOut]
+    count: int
+
+
+class CasePrediction(BaseModel):
+    version: str
+    probability: float
+    scored_at: datetime
+    tags: dict[str, str]
+    received_at: datetime
+
+
+class CaseOutcome(BaseModel):
+    label: int
+    observed_at: datetime
+    received_at: datetime
+    revision: int
+
+
+class CaseOut(BaseModel):
+    model: str
+    id: str
+    predictions: list[CasePrediction]
+    outcome: CaseOutcome | None
+    history: list[CaseOutcome] = Field(description="Every label the case has had, oldest first.")
+
+
+class Health(BaseModel):
+    status: Literal["ok", "degraded"]
+    database: Literal["ok", "unreachable"]
+    detail: dict[str, Any] = Field(default_factory=dict)
+
+
+PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
+    401: {"description": "Missing or unknown API key (problem details)."},
+    403: {"description": "The key's scope or model does not allow this (problem details)."},
+    413: {"description": "Body larger than the limit (problem details)."},
+    422: {"description": "Invalid input; `errors` lists {index, field, message} (problem details)."},
+}
+
+
+_REF = "#/components/schemas/{model}"
+_RAW_BODY_MODELS: list[type[BaseModel]] = []
+
+
+def request_body(model: type[BaseModel]) -> dict[str, Any]:
+    """``openapi_extra`` documenting a body that the route reads raw (see ``add_body_schemas``)."""
+    _RAW_BODY_MODELS.append(model)
+    return {
+        "requestBody": {
+            "required": True,
+            "content": {"application/json": {"schema": {"$ref": _REF.format(model=model.__name__)}}},
+        }
+    }
+
+
+def add_body_schemas(openapi: dict[str, Any]) -> dict[str, Any]:
+    """Put the raw-read body models, and the models they nest, into components/schemas."""
+    components = openapi.setdefault("components", {}).setdefault("schemas", {})
+    for model in _RAW_BODY_MODELS:
+        schema = model.model_json_schema(ref_template=_REF)
+        components.update(schema.pop("$defs", {}))
+        components[model.__name__] = schema
+    return openapi

@@ -1,0 +1,146 @@
+"""The ``calibrant`` command: serve, migrate, keys.
+
+A composition root: it reads Settings once and wires the layers together.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+
+import uvicorn
+from pydantic import ValidationError
+
+from calibrant.api.app import create_app
+from calibrant.clock import SystemClock
+from calibrant.config import Settings
+from calibrant.store import audit, keys_repo, migrate
+from calibrant.store.engine import make_engine, make_session_factory
+from calibrant.store.keys_repo import Scope
+
+
+def _settings(**overrides: object) -> Settings:
+    try:
+        return Settings(**{k: v for k, v in overrides.items() if v is not None})
+    except ValidationError as exc:
+        lines = [
+            f"  CALIBRANT_{'_'.join(str(p) for p in e['loc']).upper() or 'SETTINGS'}: {e['msg']}"
+            for e in exc.errors()
+        ]
+        raise SystemExit("calibrant: invalid settings\n" + "\n".join(lines)) from None
+
+
+def cmd_migrate(args: argparse.Namespace) -> int:
+    settings = _settings()
+    engine = make_engine(settings)
+    migrate.upgrade(engine)
+    engine.dispose()
+    print(f"database at {engine.url.render_as_string(hide_password=True)} is up to date")
+    return 0
+
+
+def cmd_serve(args: argparse.Namespace) -> int:
+    settings = _settings(host=args.host, port=args.port)
+    engine = make_engine(settings)
+    if settings.keys_required:
+        with make_session_factory(engine)() as session:
+            if keys_repo.active_count(session) == 0:
+                print(
+                    f"calibrant: refusing to serve on {settings.host}: API keys are required there "
+                    "and none exists. Create one with `calibrant keys create --scope admin`.",
+                    file=sys.stderr,
+                )
+                return 2
+    app = create_app(settings, engine=engine)
+    uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level)
+    return 0
+
+
+def cmd_keys_create(args: argparse.Namespace) -> int:
+    settings = _settings()
+    engine = make_engine(settings)
+    clock = SystemClock()
+    with make_session_factory(engine)() as session:
+        issued = keys_repo.create(
+            session, Scope(args.scope), clock.now(), model_name=args.model, label=args.label or ""
+        )
+        audit.record(
+            session,
+            at=clock.now(),
+            actor="cli",
+            action="key.created",
+            target=issued.key_id,
+            detail={"scope": args.scope, "model": args.model, "label": args.label or ""},
+        )
+        session.commit()
+    engine.dispose()
+    print(issued.token)
+    print(
+        f"key {issued.key_id} ({args.scope}{', model ' + args.model if args.model else ''}) "
+        "created; the line above is shown only once",
+        file=sys.stderr,
+    )
+    return 0
+
+
+def cmd_keys_list(args: argparse.Namespace) -> int:
+    engine = make_engine(_settings())
+    with make_session_factory(engine)() as session:
+        for key in keys_repo.list_keys(session):
+            state = "revoked" if key.revoked_at else "active"
+            model = key.model_name or "*"
+            print(f"{key.key_id}\t{key.scope}\t{model}\t{state}\t{key.created_at:%Y-%m-%d}\t{key.label}")
+    engine.dispose()
+    return 0
+
+
+def cmd_keys_revoke(args: argparse.Namespace) -> int:
+    engine = make_engine(_settings())
+    clock = SystemClock()
+    with make_session_factory(engine)() as session:
+        key = keys_repo.revoke(session, args.key_id, clock.now())
+        if key is None:
+            print(f"calibrant: no key {args.key_id}", file=sys.stderr)
+            return 1
+        audit.record(session, at=clock.now(), actor="cli", action="key.revoked", target=args.key_id)
+        session.commit()
+    engine.dispose()
+    print(f"key {args.key_id} revoked")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="calibrant", description="Watch the probabilities your deployed classifiers emit."
+    )
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    serve = sub.add_parser("serve", help="run the HTTP API")
+    serve.add_argument("--host", help="address to listen on (CALIBRANT_HOST, default 127.0.0.1)")
+    serve.add_argument("--port", type=int, help="port (CALIBRANT_PORT, default 8000)")
+    serve.set_defaults(func=cmd_serve)
+
+    mig = sub.add_parser("migrate", help="create or upgrade the database schema")
+    mig.set_defaults(func=cmd_migrate)
+
+    keys = sub.add_parser("keys", help="manage API keys").add_subparsers(dest="keys", required=True)
+    create = keys.add_parser("create", help="create a key and print it once")
+    create.add_argument("--scope", choices=[s.value for s in Scope], required=True)
+    create.add_argument("--model", help="limit the key to one model")
+    create.add_argument("--label", help="a note on who uses the key")
+    create.set_defaults(func=cmd_keys_create)
+    keys.add_parser("list", help="list keys (never their secrets)").set_defaults(func=cmd_keys_list)
+    revoke = keys.add_parser("revoke", help="revoke a key by its id")
+    revoke.add_argument("key_id")
+    revoke.set_defaults(func=cmd_keys_revoke)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    return int(args.func(args) or 0)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

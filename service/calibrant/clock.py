@@ -1,0 +1,35 @@
+"""Time as a dependency, so tests can fix it instead of sleeping."""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime, timedelta
+from typing import Protocol
+
+
+class Clock(Protocol):
+    def now(self) -> datetime:
+        """The current instant, timezone-aware UTC."""
+        ...
+
+
+class SystemClock:
+    def now(self) -> datetime:
+        return datetime.now(UTC)
+
+
+class FixedClock:
+    """A clock that moves only when told to (tests, backfills)."""
+
+    def __init__(self, start: datetime) -> None:
+        if start.tzinfo is None:
+            raise ValueError("FixedClock needs a timezone-aware start")
+        self._now = start
+
+    def now(self) -> datetime:
+        return self._now
+
+    def advance(self, delta: timedelta) -> None:
+        self._now += delta
+
+    def set(self, instant: datetime) -> None:
+        self._now = instant

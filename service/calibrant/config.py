@@ -1,0 +1,100 @@
+"""Settings, read once from ``CALIBRANT_*`` environment variables.
+
+Nothing reads the environment at import time: ``Settings()`` is built by the
+composition roots (``cli``, tests) and handed down explicitly.
+"""
+
+from __future__ import annotations
+
+import ipaddress
+from enum import StrEnum
+
+from pydantic import Field, field_validator, model_validator
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+DEFAULT_DATABASE_URL = "sqlite:///./var/calibrant.db"
+
+
+class AuthMode(StrEnum):
+    """When API keys are demanded."""
+
+    AUTO = "auto"  # required unless the server listens on a loopback address only
+    REQUIRED = "required"
+    OFF = "off"
+
+
+class Settings(BaseSettings):
+    """Every tunable of the service; see the README table for what each does."""
+
+    model_config = SettingsConfigDict(env_prefix="CALIBRANT_", extra="ignore")
+
+    database_url: str = Field(
+        DEFAULT_DATABASE_URL, description="SQLAlchemy URL of the database."
+    )
+    host: str = Field("127.0.0.1", description="Address `calibrant serve` listens on.")
+    port: int = Field(8000, ge=1, le=65535, description="Port `calibrant serve` listens on.")
+    auth: AuthMode = Field(AuthMode.AUTO, description="auto | required | off.")
+    allow_open_public: bool = Field(
+        False,
+        description="Permit auth=off on a non-loopback address (otherwise refused at start).",
+    )
+    max_body_bytes: int = Field(16 * 1024 * 1024, ge=1024, description="Largest request body.")
+    max_batch_items: int = Field(10_000, ge=1, le=100_000, description="Largest ingest batch.")
+    sqlite_synchronous: str = Field(
+        "FULL",
+        description="SQLite synchronous PRAGMA: FULL survives power loss, NORMAL only crashes.",
+    )
+    sqlite_cache_mib: int = Field(64, ge=1, description="SQLite page cache per connection.")
+    db_pool_size: int = Field(5, ge=1, description="Connections kept per process (PostgreSQL).")
+    log_level: str = Field("info", description="uvicorn/app log level.")
+
+    @field_validator("database_url")
+    @classmethod
+    def _known_dialect(cls, value: str) -> str:
+        if not value.startswith(("sqlite", "postgresql")):
+            raise ValueError(
+                "must be a SQLAlchemy URL for SQLite (sqlite:///path.db) or PostgreSQL "
+                "(postgresql+psycopg://user@host:5432/db)"
+            )
+        if value.startswith("postgresql://"):
+            # Plain postgresql:// would pick psycopg2, which we do not ship.
+            value = "postgresql+psycopg://" + value.removeprefix("postgresql://")
+        return value
+
+    @field_validator("sqlite_synchronous")
+    @classmethod
+    def _sync_mode(cls, value: str) -> str:
+        upper = value.upper()
+        if upper not in {"FULL", "NORMAL", "EXTRA"}:
+            raise ValueError("must be FULL, NORMAL or EXTRA")
+        return upper
+
+    @model_validator(mode="after")
+    def _refuse_open_public(self) -> Settings:
+        if self.auth is AuthMode.OFF and not is_loopback(self.host) and not self.allow_open_public:
+            raise ValueError(
+                f"auth=off on the non-loopback address {self.host!r} would let anyone write "
+                "and read data; create a key with `calibrant keys create` instead, or set "
+                "CALIBRANT_ALLOW_OPEN_PUBLIC=true if a proxy in front does the checking"
+            )
+        return self
+
+    @property
+    def keys_required(self) -> bool:
+        if self.auth is AuthMode.AUTO:
+            return not is_loopback(self.host)
+        return self.auth is AuthMode.REQUIRED
+
+    @property
+    def is_sqlite(self) -> bool:
+        return self.database_url.startswith("sqlite")
+
+
+def is_loopback(host: str) -> bool:
+    """True when ``host`` can only be reached from this machine."""
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False

@@ -1,0 +1,101 @@
+"""The one error tree of the service.
+
+::
+
+    CalibrantError              (500, never raised for bad input)
+    ├── InvalidInput            (422, carries field errors)
+    ├── PayloadTooLarge         (413)
+    ├── NotFound                (404)
+    ├── Conflict                (409, carries the conflicting keys)
+    ├── Unauthenticated         (401)
+    └── Forbidden               (403)
+
+Each knows its HTTP status; ``api.problems`` renders any of them as an
+RFC 9457 problem document. Services raise these and never import FastAPI.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+
+@dataclass(frozen=True, slots=True)
+class FieldError:
+    """One bad value: which item of a batch (or None for the body), which field, why."""
+
+    index: int | None
+    field: str
+    message: str
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"index": self.index, "field": self.field, "message": self.message}
+
+
+class CalibrantError(Exception):
+    status = 500
+    title = "Internal error"
+    slug = "internal"
+
+    def __init__(self, detail: str) -> None:
+        super().__init__(detail)
+        self.detail = detail
+
+    def extensions(self) -> dict[str, Any]:
+        """Members added to the problem document beside type/title/status/detail."""
+        return {}
+
+
+class InvalidInput(CalibrantError):
+    status = 422
+    title = "Invalid input"
+    slug = "invalid-input"
+
+    def __init__(self, detail: str, errors: list[FieldError]) -> None:
+        super().__init__(detail)
+        self.errors = errors
+
+    def extensions(self) -> dict[str, Any]:
+        return {"errors": [e.as_dict() for e in self.errors]}
+
+
+class PayloadTooLarge(CalibrantError):
+    status = 413
+    title = "Payload too large"
+    slug = "payload-too-large"
+
+
+class NotFound(CalibrantError):
+    status = 404
+    title = "Not found"
+    slug = "not-found"
+
+
+class Conflict(CalibrantError):
+    status = 409
+    title = "Conflicting content"
+    slug = "conflict"
+
+    def __init__(self, detail: str, conflicts: list[dict[str, Any]]) -> None:
+        super().__init__(detail)
+        self.conflicts = conflicts
+
+    def extensions(self) -> dict[str, Any]:
+        return {"conflicts": self.conflicts}
+
+
+class Unauthenticated(CalibrantError):
+    status = 401
+    title = "Authentication required"
+    slug = "unauthenticated"
+
+
+class Forbidden(CalibrantError):
+    status = 403
+    title = "Forbidden"
+    slug = "forbidden"
+
+
+def invalid(field: str, message: str, index: int | None = None) -> InvalidInput:
+    """Shorthand for a single-field 422."""
+    return InvalidInput(f"{field}: {message}", [FieldError(index, field, message)])

@@ -1,0 +1,74 @@
+"""Ingest use cases: validate, write idempotently, report counts.
+
+Services flush but never commit: the caller (a request or CLI command) owns
+the unit of work, so a 2xx is sent only after the commit returned.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from sqlalchemy.orm import Session
+
+from calibrant.clock import Clock
+from calibrant.errors import Conflict
+from calibrant.ingest.batch import check_model_name, parse_outcomes, parse_predictions
+from calibrant.store import audit, models_repo
+from calibrant.store.ingest_writes import OutcomeWrite, insert_predictions, upsert_outcomes
+from calibrant.store.tables import Model
+
+
+@dataclass(frozen=True, slots=True)
+class PredictionResult:
+    accepted: int
+    duplicates: int
+
+
+def _model_for_ingest(session: Session, name: str, clock: Clock, actor: str) -> Model:
+    model, created = models_repo.get_or_create(session, check_model_name(name), clock.now())
+    if created:
+        audit.record(
+            session,
+            at=clock.now(),
+            actor=actor,
+            action="model.created",
+            target=name,
+            detail={"how": "first ingest, default settings"},
+            model_id=model.id,
+        )
+    return model
+
+
+def ingest_predictions(
+    session: Session, model_name: str, body: bytes, *, max_items: int, clock: Clock, actor: str
+) -> PredictionResult:
+    """Store a batch of predictions, all or nothing.
+
+    Raises ``InvalidInput`` (422) for any bad item and ``Conflict`` (409) when a
+    (version, id) already exists with different content.
+    """
+    check_model_name(model_name)
+    batch = parse_predictions(body, max_items)
+    model = _model_for_ingest(session, model_name, clock, actor)
+    if not len(batch):
+        return PredictionResult(0, 0)
+    written = insert_predictions(session.connection(), model.id, batch, clock.now())
+    if written.conflicts:
+        raise Conflict(
+            f"{len(written.conflicts)} prediction(s) already exist with different content; "
+            "nothing was stored. Predictions are immutable: score a new version instead.",
+            [{"index": c.index, "id": c.case_id, "version": c.version} for c in written.conflicts],
+        )
+    return PredictionResult(written.accepted, written.duplicates)
+
+
+def ingest_outcomes(
+    session: Session, model_name: str, body: bytes, *, max_items: int, clock: Clock, actor: str
+) -> OutcomeWrite:
+    """Store a batch of outcomes: new labels, duplicates and corrections (history kept)."""
+    check_model_name(model_name)
+    batch = parse_outcomes(body, max_items)
+    model = _model_for_ingest(session, model_name, clock, actor)
+    if not len(batch):
+        return OutcomeWrite(0, 0, 0, [])
+    return upsert_outcomes(session.connection(), model.id, batch, clock.now())

@@ -1,0 +1,93 @@
+"""Model use cases: read, list, update settings (audited), look up a case."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from pydantic import ValidationError
+from sqlalchemy.orm import Session
+
+from calibrant.clock import Clock
+from calibrant.errors import FieldError, InvalidInput, NotFound
+from calibrant.ingest.batch import check_model_name
+from calibrant.models.settings import (
+    SUMMARY_SETTINGS,
+    ModelSettingsPatch,
+    consistency_problem,
+    merged,
+)
+from calibrant.store import audit, cases, models_repo
+from calibrant.store.tables import Model
+
+SETTING_NAMES = (
+    "description",
+    "outcome_horizon_days",
+    "outcome_lag_days",
+    "implicit_negatives",
+    "segment_keys",
+    "reference",
+)
+
+
+def settings_of(model: Model) -> dict[str, Any]:
+    return {name: getattr(model, name) for name in SETTING_NAMES}
+
+
+def require(session: Session, name: str) -> Model:
+    check_model_name(name)
+    model = models_repo.get(session, name)
+    if model is None:
+        raise NotFound(f"no model named {name!r}; it is created by its first ingest or by PUT")
+    return model
+
+
+def parse_patch(body: bytes) -> tuple[ModelSettingsPatch, set[str]]:
+    try:
+        patch = ModelSettingsPatch.model_validate_json(body or b"{}")
+    except ValidationError as exc:
+        errors = [
+            FieldError(None, ".".join(str(p) for p in e["loc"]) or "body", e["msg"])
+            for e in exc.errors(include_url=False)
+        ]
+        raise InvalidInput("the model settings are invalid; nothing was changed", errors) from None
+    return patch, set(patch.model_fields_set)
+
+
+def put_settings(
+    session: Session, name: str, body: bytes, *, clock: Clock, actor: str
+) -> tuple[Model, bool]:
+    """Create or merge-update a model's settings. Returns (model, created)."""
+    check_model_name(name)
+    patch, fields_set = parse_patch(body)
+    model, created = models_repo.get_or_create(session, name, clock.now())
+    before = settings_of(model)
+    after = merged(before, patch, fields_set)
+    problem = consistency_problem(after)
+    if problem:
+        raise InvalidInput(problem, [FieldError(None, "implicit_negatives", problem)])
+    changed = {k: {"from": before[k], "to": after[k]} for k in SETTING_NAMES if before[k] != after[k]}
+    for key, value in after.items():
+        setattr(model, key, value)
+    if any(k in changed for k in SUMMARY_SETTINGS):
+        model.settings_generation += 1
+    if changed or created:
+        model.updated_at = clock.now()
+        audit.record(
+            session,
+            at=clock.now(),
+            actor=actor,
+            action="model.created" if created else "model.settings_changed",
+            target=name,
+            detail={"changes": changed},
+            model_id=model.id,
+        )
+    session.flush()
+    return model, created
+
+
+def case_record(session: Session, name: str, case_id: str) -> cases.CaseRecord:
+    model = require(session, name)
+    record = cases.load(session, model.id, case_id)
+    if not record.found:
+        raise NotFound(f"model {name!r} has no prediction or outcome with id {case_id!r}")
+    return record

@@ -1,0 +1,86 @@
+"""A model's monitoring settings: validation and merge-update."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, StringConstraints, model_validator
+
+from calibrant.ingest.batch import TAG_KEY
+
+MAX_SEGMENT_KEYS = 4
+SegmentKey = Annotated[str, StringConstraints(pattern=TAG_KEY.pattern)]
+
+
+class TrafficReference(BaseModel):
+    """Use the model's own predictions scored in [start, end) as the reference."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    kind: Literal["traffic"] = "traffic"
+    start: AwareDatetime
+    end: AwareDatetime
+    version: str | None = Field(None, description="Restrict to one version; all versions if absent.")
+
+    @model_validator(mode="after")
+    def _ordered(self) -> TrafficReference:
+        if self.end <= self.start:
+            raise ValueError("end must be after start")
+        return self
+
+
+class ModelSettingsPatch(BaseModel):
+    """``PUT /v1/models/{model}`` body. Absent fields keep their value (merge)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    description: str | None = Field(None, max_length=2000)
+    outcome_horizon_days: int | None = Field(
+        None, ge=1, le=3650, description="Days after scoring within which the event counts."
+    )
+    outcome_lag_days: int | None = Field(
+        None, ge=0, le=3650, description="Extra days for outcomes to be reported."
+    )
+    implicit_negatives: bool | None = Field(
+        None, description="Count a mature prediction without outcome as 0 (needs a horizon)."
+    )
+    segment_keys: list[SegmentKey] | None = Field(
+        None, max_length=MAX_SEGMENT_KEYS, description="Tag keys to keep summaries for (<= 4)."
+    )
+    reference: TrafficReference | None = None
+
+    @model_validator(mode="after")
+    def _unique_keys(self) -> ModelSettingsPatch:
+        if self.segment_keys is not None and len(set(self.segment_keys)) != len(self.segment_keys):
+            raise ValueError("segment_keys must not repeat")
+        return self
+
+
+# Settings whose change invalidates the model's summaries.
+SUMMARY_SETTINGS = ("outcome_horizon_days", "outcome_lag_days", "implicit_negatives", "segment_keys")
+
+
+def merged(current: dict[str, Any], patch: ModelSettingsPatch, fields_set: set[str]) -> dict[str, Any]:
+    """The settings after applying the fields the client actually sent.
+
+    ``fields_set`` distinguishes "absent" (keep) from an explicit null, which
+    clears ``outcome_horizon_days`` or ``reference``.
+    """
+    out = dict(current)
+    for name in fields_set:
+        value = getattr(patch, name)
+        if name == "reference" and value is not None:
+            value = value.model_dump(mode="json")
+        if value is None and name in {"description", "outcome_lag_days", "implicit_negatives"}:
+            value = {"description": "", "outcome_lag_days": 0, "implicit_negatives": False}[name]
+        if value is None and name == "segment_keys":
+            value = []
+        out[name] = value
+    return out
+
+
+def consistency_problem(settings: dict[str, Any]) -> str | None:
+    if settings.get("implicit_negatives") and settings.get("outcome_horizon_days") is None:
+        return "implicit_negatives needs outcome_horizon_days: without a horizon no case is ever mature"
+    return None
+

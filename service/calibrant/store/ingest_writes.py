@@ -1,0 +1,163 @@
+"""Idempotent writes of predictions and outcomes (all SQL of the ingest path).
+
+Predictions: ``INSERT … SELECT … ON CONFLICT DO NOTHING`` from the staging
+table; its row count separates new rows from re-posts. Rows that were not new
+are compared with what is stored; any difference rejects the whole batch.
+Concurrent writers of the same key are safe on PostgreSQL because the
+conflicting INSERT waits for the other transaction and the comparison runs
+as a new statement that sees the committed row.
+
+Outcomes: a model's outcome batches are serialised (a row lock on the model
+on PostgreSQL, the single SQLite writer otherwise) so that classifying each
+outcome as new, duplicate or correction cannot race.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import datetime
+
+from sqlalchemy import Connection, text
+
+from calibrant.store.batches import OutcomeColumns, PredictionColumns
+from calibrant.store.bulk import OUTCOME_STAGING, PREDICTION_STAGING, db_instant, stage
+
+
+@dataclass(frozen=True, slots=True)
+class PredictionConflict:
+    index: int
+    case_id: str
+    version: str
+
+
+@dataclass(frozen=True, slots=True)
+class PredictionWrite:
+    accepted: int
+    duplicates: int
+    conflicts: list[PredictionConflict]
+
+
+@dataclass(frozen=True, slots=True)
+class OutcomeWrite:
+    accepted: int
+    duplicates: int
+    corrected: int
+    # case ids whose label is new or changed, for whoever needs to recompute
+    changed_case_ids: list[str]
+
+
+def insert_predictions(
+    conn: Connection, model_id: int, batch: PredictionColumns, received_at: datetime
+) -> PredictionWrite:
+    rows = list(
+        zip(
+            range(len(batch)),
+            batch.case_id,
+            batch.version,
+            batch.probability,
+            batch.scored_at,
+            batch.tags,
+            strict=True,
+        )
+    )
+    stage(conn, "staging_predictions", PREDICTION_STAGING, rows)
+    # "WHERE true" resolves SQLite's parsing ambiguity between a join's ON and ON CONFLICT;
+    # inserting in key order keeps concurrent overlapping batches from deadlocking.
+    inserted = conn.execute(
+        text(
+            "INSERT INTO predictions "
+            "(model_id, case_id, version, probability, scored_at, tags, received_at) "
+            "SELECT :model_id, case_id, version, probability, scored_at, tags, :received_at "
+            "FROM staging_predictions WHERE true ORDER BY case_id, version "
+            "ON CONFLICT (model_id, case_id, version) DO NOTHING"
+        ),
+        {"model_id": model_id, "received_at": db_instant(conn, received_at)},
+    ).rowcount
+    conflicts: list[PredictionConflict] = []
+    if inserted < len(batch):
+        found = conn.execute(
+            text(
+                "SELECT s.idx, s.case_id, s.version FROM staging_predictions s "
+                "JOIN predictions p ON p.model_id = :model_id "
+                "AND p.case_id = s.case_id AND p.version = s.version "
+                "WHERE p.probability <> s.probability OR p.scored_at <> s.scored_at "
+                "OR COALESCE(p.tags, '') <> COALESCE(s.tags, '') ORDER BY s.idx"
+            ),
+            {"model_id": model_id},
+        )
+        conflicts = [PredictionConflict(int(i), c, v) for i, c, v in found]
+    return PredictionWrite(inserted, len(batch) - inserted, conflicts)
+
+
+def lock_model_for_outcomes(conn: Connection, model_id: int) -> None:
+    if conn.dialect.name == "postgresql":
+        conn.execute(text("SELECT id FROM models WHERE id = :id FOR UPDATE"), {"id": model_id})
+
+
+def upsert_outcomes(
+    conn: Connection, model_id: int, batch: OutcomeColumns, received_at: datetime
+) -> OutcomeWrite:
+    lock_model_for_outcomes(conn, model_id)
+    rows = list(
+        zip(range(len(batch)), batch.case_id, batch.label, batch.observed_at, strict=True)
+    )
+    stage(conn, "staging_outcomes", OUTCOME_STAGING, rows)
+    existing = conn.execute(
+        text(
+            "SELECT s.idx, o.label, o.revision FROM staging_outcomes s "
+            "JOIN outcomes o ON o.model_id = :model_id AND o.case_id = s.case_id"
+        ),
+        {"model_id": model_id},
+    )
+    current = {int(idx): (int(label), int(rev)) for idx, label, rev in existing}
+    received = db_instant(conn, received_at)
+    new_rows: list[dict] = []
+    corrections: list[dict] = []
+    duplicates = 0
+    for idx in range(len(batch)):
+        params = {
+            "model_id": model_id,
+            "case_id": batch.case_id[idx],
+            "label": batch.label[idx],
+            "observed_at": db_instant(conn, batch.observed_at[idx]),
+            "received_at": received,
+        }
+        if idx not in current:
+            new_rows.append({**params, "revision": 1})
+        elif current[idx][0] == batch.label[idx]:
+            duplicates += 1  # the same label again, whatever its observed_at
+        else:
+            corrections.append({**params, "revision": current[idx][1] + 1})
+    if new_rows:
+        conn.execute(
+            text(
+                "INSERT INTO outcomes (model_id, case_id, label, observed_at, received_at, revision) "
+                "VALUES (:model_id, :case_id, :label, :observed_at, :received_at, :revision)"
+            ),
+            new_rows,
+        )
+    if corrections:
+        conn.execute(
+            text(
+                "UPDATE outcomes SET label = :label, observed_at = :observed_at, "
+                "received_at = :received_at, revision = :revision "
+                "WHERE model_id = :model_id AND case_id = :case_id"
+            ),
+            corrections,
+        )
+    history = new_rows + corrections
+    if history:
+        conn.execute(
+            text(
+                "INSERT INTO outcome_revisions "
+                "(model_id, case_id, revision, label, observed_at, received_at) "
+                "VALUES (:model_id, :case_id, :revision, :label, :observed_at, :received_at)"
+            ),
+            history,
+        )
+    return OutcomeWrite(
+        accepted=len(new_rows),
+        duplicates=duplicates,
+        corrected=len(corrections),
+        changed_case_ids=[r["case_id"] for r in history],
+    )

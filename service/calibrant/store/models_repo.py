@@ -1,0 +1,84 @@
+"""Models: lookup, creation on first ingest, settings, counts."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import datetime
+
+from sqlalchemy import func, select
+from sqlalchemy.dialects.postgresql import insert as postgresql_insert
+from sqlalchemy.dialects.sqlite import insert as sqlite_insert
+from sqlalchemy.orm import Session
+
+from calibrant.store.tables import Model, Outcome, Prediction
+
+# Both dialects spell "insert unless it exists" as ON CONFLICT DO NOTHING.
+_DIALECT_INSERT = {"postgresql": postgresql_insert, "sqlite": sqlite_insert}
+
+
+def get(session: Session, name: str) -> Model | None:
+    return session.scalars(select(Model).where(Model.name == name)).one_or_none()
+
+
+def get_or_create(session: Session, name: str, now: datetime) -> tuple[Model, bool]:
+    """The model called ``name``, created with default settings if new.
+
+    Safe under concurrent first ingests: the INSERT ignores a name that
+    another transaction inserted first, and we read whichever row won.
+    """
+    existing = get(session, name)
+    if existing is not None:
+        return existing, False
+    values = {
+        "name": name,
+        "description": "",
+        "outcome_horizon_days": None,
+        "outcome_lag_days": 0,
+        "implicit_negatives": False,
+        "segment_keys": [],
+        "reference": None,
+        "settings_generation": 1,
+        "created_at": now,
+        "updated_at": now,
+    }
+    dialect_insert = _DIALECT_INSERT[session.get_bind().dialect.name]
+    result = session.execute(
+        dialect_insert(Model).values(**values).on_conflict_do_nothing(index_elements=["name"])
+    )
+    created = bool(result.rowcount)
+    model = get(session, name)
+    assert model is not None  # either we or a concurrent writer inserted it
+    return model, created
+
+
+def list_all(session: Session) -> list[Model]:
+    return list(session.scalars(select(Model).order_by(Model.name)))
+
+
+@dataclass(frozen=True, slots=True)
+class ModelCounts:
+    predictions: int
+    outcomes: int
+    labeled: int  # predictions that have an outcome
+
+
+def counts(session: Session, model_id: int) -> ModelCounts:
+    n_pred = session.scalar(
+        select(func.count()).select_from(Prediction).where(Prediction.model_id == model_id)
+    )
+    n_out = session.scalar(
+        select(func.count()).select_from(Outcome).where(Outcome.model_id == model_id)
+    )
+    n_lab = session.scalar(
+        select(func.count())
+        .select_from(Prediction)
+        .join(
+            Outcome,
+            (Outcome.model_id == Prediction.model_id) & (Outcome.case_id == Prediction.case_id),
+        )
+        .where(Prediction.model_id == model_id)
+    )
+    return ModelCounts(int(n_pred or 0), int(n_out or 0), int(n_lab or 0))
+
+
+__all__ = ["ModelCounts", "counts", "get", "get_or_create", "list_all"]
