@@ -12,7 +12,7 @@ from sqlalchemy import Connection
 
 from calibrant.config import Settings
 from calibrant.store.engine import make_engine
-from calibrant.store.tables import Base
+from calibrant.store.schema import Base
 
 target_metadata = Base.metadata
 

@@ -25,7 +25,7 @@ from calibrant.clock import Clock
 from calibrant.config import Settings
 from calibrant.store import migrate
 from calibrant.store.engine import make_engine
-from calibrant.store.tables import Base
+from calibrant.store.schema import Base
 
 DEFAULT_PG_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
 IN_CI = os.environ.get("CI", "").lower() == "true"

@@ -1,0 +1,14 @@
+"""Every table module, imported so that ``Base.metadata`` is complete.
+
+Alembic's env and the tests import this module, not the table modules one by one: a table
+module that is not listed here would be invisible to ``alembic check``.
+"""
+
+from __future__ import annotations
+
+from calibrant.store import tables
+from calibrant.store.tables import Base
+
+metadata = Base.metadata
+
+__all__ = ["Base", "metadata", "tables"]
