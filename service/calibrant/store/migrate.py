@@ -27,7 +27,7 @@ def _with_connection(engine: Engine, action, *args: str) -> None:
         action(cfg, *args)
 
 
-def upgrade(engine: Engine, revision: str = "head") -> None:
+def upgrade(engine: Engine, revision: str = "heads") -> None:
     _with_connection(engine, command.upgrade, revision)
 
 
