@@ -4,12 +4,21 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, StringConstraints, model_validator
+from pydantic import (
+    AwareDatetime,
+    BaseModel,
+    ConfigDict,
+    Field,
+    StringConstraints,
+    field_validator,
+    model_validator,
+)
 
 from calibrant.ingest.batch import TAG_KEY
 
 MAX_SEGMENT_KEYS = 4
-SegmentKey = Annotated[str, StringConstraints(pattern=TAG_KEY.pattern)]
+# Anchored: a pydantic pattern matches anywhere in the string unless told otherwise.
+SegmentKey = Annotated[str, StringConstraints(pattern=f"^{TAG_KEY.pattern}$")]
 
 
 class TrafficReference(BaseModel):
@@ -49,11 +58,13 @@ class ModelSettingsPatch(BaseModel):
     )
     reference: TrafficReference | None = None
 
-    @model_validator(mode="after")
-    def _unique_keys(self) -> ModelSettingsPatch:
-        if self.segment_keys is not None and len(set(self.segment_keys)) != len(self.segment_keys):
+    # A field validator (not a model validator) so the 422 names segment_keys, not the body.
+    @field_validator("segment_keys")
+    @classmethod
+    def _unique_keys(cls, keys: list[str] | None) -> list[str] | None:
+        if keys is not None and len(set(keys)) != len(keys):
             raise ValueError("segment_keys must not repeat")
-        return self
+        return keys
 
 
 # Settings whose change invalidates the model's summaries.
