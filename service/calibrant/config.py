@@ -47,6 +47,29 @@ class Settings(BaseSettings):
     sqlite_cache_mib: int = Field(64, ge=1, description="SQLite page cache per connection.")
     db_pool_size: int = Field(5, ge=1, description="Connections kept per process (PostgreSQL).")
     log_level: str = Field("info", description="uvicorn/app log level.")
+    webhook_allow_private: bool = Field(
+        False,
+        description="Permit webhook targets on private and loopback addresses (never link-local "
+        "or cloud metadata ones).",
+    )
+    webhook_sender: str = Field("http", description="http (deliver) or log (only log each request).")
+    webhook_timeout_seconds: float = Field(10.0, gt=0, le=120, description="Per webhook attempt.")
+    webhook_retry_base_seconds: float = Field(
+        30.0, ge=1, description="Delay before the first retry; doubles per attempt, with jitter."
+    )
+    webhook_retry_max_interval_seconds: float = Field(
+        6 * 3600.0, ge=1, description="Longest delay between two attempts."
+    )
+    webhook_retry_window_hours: float = Field(
+        24.0, ge=1 / 60, description="How long after an event its delivery is retried before giving up."
+    )
+    webhook_failing_after: int = Field(
+        5, ge=1, description="Consecutive failed attempts after which a target is reported failing."
+    )
+    webhook_batch_size: int = Field(20, ge=1, le=1000, description="Deliveries claimed at a time.")
+    webhook_claim_seconds: float = Field(
+        120.0, ge=1, description="How long a worker holds a claimed delivery before others may take it."
+    )
 
     @field_validator("database_url")
     @classmethod
@@ -68,6 +91,21 @@ class Settings(BaseSettings):
         if upper not in {"FULL", "NORMAL", "EXTRA"}:
             raise ValueError("must be FULL, NORMAL or EXTRA")
         return upper
+
+    @field_validator("webhook_sender")
+    @classmethod
+    def _known_sender(cls, value: str) -> str:
+        if value not in {"http", "log"}:
+            raise ValueError("must be http or log")
+        return value
+
+    @model_validator(mode="after")
+    def _claim_outlasts_attempt(self) -> Settings:
+        # A claim renewed before each attempt must outlive that attempt, or a second
+        # worker could take the delivery over while the first is still sending it.
+        if self.webhook_claim_seconds <= self.webhook_timeout_seconds + 5:
+            raise ValueError("webhook_claim_seconds must exceed webhook_timeout_seconds by more than 5")
+        return self
 
     @model_validator(mode="after")
     def _refuse_open_public(self) -> Settings:
