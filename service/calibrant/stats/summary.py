@@ -30,6 +30,7 @@ bins. The edges belong to the stored format: changing them needs a new
 from __future__ import annotations
 
 import struct
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -87,7 +88,7 @@ _N_CELLS = N_BINS * _N_CLASSES
 _HEADER = struct.Struct("<4sHHHHI")  # magic, version, flags, n_fields, n_bins, n_cells
 _MAGIC = b"CBSM"
 _FLAG_WEIGHTED = 1
-_CHUNK_ROWS = 1 << 19  # rows binned per pass: bounds temporaries and per-bin summation length
+_CHUNK_ROWS = 1 << 16  # rows binned per pass: bounds temporaries and per-bin summation length
 
 
 def bin_index(y_proba: np.ndarray) -> np.ndarray:
@@ -103,26 +104,35 @@ def _neumaier_add(total: np.ndarray, comp: np.ndarray, add: np.ndarray) -> None:
     total[...] = t
 
 
-def _row_fields(p: np.ndarray, y_loss: np.ndarray, w: np.ndarray | None) -> np.ndarray:
-    """Per-row values of every field (rows × N_FIELDS), weighted by w if given.
+def _row_fields(p: np.ndarray, y_loss: np.ndarray) -> Iterator[np.ndarray]:
+    """Per-row values of every field, one column at a time in :data:`FIELDS` order
+    (one at a time so that only a few row-length temporaries are alive).
 
     ``y_loss`` is 1 for positives and 0 for negatives and unlabelled rows.
     """
+    yield np.ones_like(p)
+    yield p
+    p2 = p * p
+    yield p2
+    yield p2 * p
+    yield p2 * p2
+    del p2
     pc = np.clip(p, EPS, 1.0 - EPS)
     x = logit(pc)
+    yield x
+    yield x * x
     # ℓ = −ln(1 − p) − y·x on the clipped p (METHODS.md 1)
     loss = -np.log1p(-pc) - y_loss * x
-    ent = -(xlogy(p, p) + xlogy(1.0 - p, 1.0 - p))
-    p2 = p * p
-    clipped = ((p < EPS) | (p > 1.0 - EPS)).astype(np.float64)
-    confident = np.where(y_loss == 1.0, p < CONFIDENT_ERROR_THRESHOLD,
-                         p > 1.0 - CONFIDENT_ERROR_THRESHOLD).astype(np.float64)
-    cols = [np.ones_like(p), p, p2, p2 * p, p2 * p2, x, x * x, loss, loss * loss, ent,
-            p * (1.0 - p) * x * x, clipped, confident]
-    out = np.stack(cols, axis=1)
-    if w is not None:
-        out *= w[:, None]
-    return out
+    del pc
+    yield loss
+    yield loss * loss
+    del loss
+    yield -(xlogy(p, p) + xlogy(1.0 - p, 1.0 - p))
+    yield p * (1.0 - p) * x * x
+    del x
+    yield ((p < EPS) | (p > 1.0 - EPS)).astype(np.float64)
+    yield np.where(y_loss == 1.0, p < CONFIDENT_ERROR_THRESHOLD,
+                   p > 1.0 - CONFIDENT_ERROR_THRESHOLD).astype(np.float64)
 
 
 @dataclass(frozen=True, slots=True)
@@ -210,10 +220,11 @@ class Summary:
             pc, sc = p[sl], s[sl]
             cls_idx = np.where(sc == UNLABELLED, 2, sc).astype(np.int64)
             cell = bin_index(pc) * _N_CLASSES + cls_idx
-            rows = _row_fields(pc, (sc == POSITIVE).astype(np.float64), None if w is None else w[sl])
+            wc = None if w is None else w[sl]
             part = np.empty_like(total)
-            for j in range(N_FIELDS):
-                part[:, j] = np.bincount(cell, weights=rows[:, j], minlength=_N_CELLS)
+            for j, col in enumerate(_row_fields(pc, (sc == POSITIVE).astype(np.float64))):
+                part[:, j] = np.bincount(cell, weights=col if wc is None else col * wc,
+                                         minlength=_N_CELLS)
             _neumaier_add(total, comp, part)
         dense = total + comp
         keep = np.flatnonzero(dense[:, 0] > 0)

@@ -219,7 +219,12 @@ def brier_skill_score(data: Summary | LabelledBins, *, implicit_negatives: bool 
 def spiegelhalter_z(data: Summary | LabelledBins, *, implicit_negatives: bool = False
                     ) -> Estimate:
     """Spiegelhalter's z from power sums: numerator n1 − 2Σ_{y=1}p − Σp + 2Σp²,
-    variance Σ(p − 5p² + 8p³ − 4p⁴) (METHODS.md 4.1; Spiegelhalter 1986)."""
+    variance Σ(p − 5p² + 8p³ − 4p⁴) (METHODS.md 4.1; Spiegelhalter 1986).
+
+    Precision: the power-sum variance carries an absolute rounding error of
+    about ε·Σp, negligible unless nearly every p lies within ~1e-6 of 0 or 1
+    (then the variance itself is tiny and z loses relative precision).
+    """
     t = _Totals(view(data, implicit_negatives))
     num, var = spiegelhalter_sums_from_power_sums(
         t.n1, t["pos", "s1"], t["all", "s1"], t["all", "s2"], t["all", "s3"], t["all", "s4"])
