@@ -17,10 +17,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import datetime
 
-from sqlalchemy import Connection, text
+from sqlalchemy import Connection, String, text
 
+from calibrant.store import dirty
 from calibrant.store.batches import OutcomeColumns, PredictionColumns
 from calibrant.store.bulk import OUTCOME_STAGING, PREDICTION_STAGING, db_instant, stage
+from calibrant.store.dirty import BucketKey, hour_of
+from calibrant.store.types import UTCDateTime
 
 
 @dataclass(frozen=True, slots=True)
@@ -86,6 +89,9 @@ def insert_predictions(
             {"model_id": model_id},
         )
         conflicts = [PredictionConflict(int(i), c, v) for i, c, v in found]
+    if inserted and not conflicts:
+        buckets = {(v, hour_of(t)) for v, t in zip(batch.version, batch.scored_at, strict=True)}
+        dirty.mark(conn, (BucketKey(model_id, v, h) for v, h in buckets), received_at)
     return PredictionWrite(inserted, len(batch) - inserted, conflicts)
 
 
@@ -155,9 +161,31 @@ def upsert_outcomes(
             ),
             history,
         )
+    if history:
+        _mark_outcome_buckets(conn, model_id, {r["case_id"] for r in history}, received_at)
     return OutcomeWrite(
         accepted=len(new_rows),
         duplicates=duplicates,
         corrected=len(corrections),
         changed_case_ids=[r["case_id"] for r in history],
     )
+
+
+def _mark_outcome_buckets(conn: Connection, model_id: int, changed: set[str], now: datetime) -> None:
+    """Mark the buckets of every version's prediction of the cases whose label changed.
+
+    A case without a prediction yet marks nothing: its prediction's ingest will.
+    """
+    found = conn.execute(
+        text(
+            "SELECT s.case_id, p.version, p.scored_at FROM staging_outcomes s "
+            "JOIN predictions p ON p.model_id = :model_id AND p.case_id = s.case_id"
+        ).columns(case_id=String, version=String, scored_at=UTCDateTime),
+        {"model_id": model_id},
+    )
+    keys = {
+        BucketKey(model_id, version, hour_of(scored_at))
+        for case_id, version, scored_at in found
+        if case_id in changed
+    }
+    dirty.mark(conn, keys, now)
