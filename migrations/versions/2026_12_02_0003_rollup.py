@@ -1,7 +1,7 @@
 """Rollup: hourly bucket summaries, dirty marks, segment values, references, job runs.
 
 Revision ID: 0003
-Revises: 0001
+Revises: 0002
 Create Date: 2026-12-02
 """
 
@@ -11,7 +11,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = "0003"
-down_revision = "0001"
+down_revision = "0002"
 branch_labels = None
 depends_on = None
 
