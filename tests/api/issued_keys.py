@@ -9,11 +9,12 @@ from tests.conftest import Database
 
 
 def run_cli(db: Database, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture, *argv: str):
-    """Run ``calibrant argv...`` against ``db``; returns (exit code, stdout)."""
+    """Run ``calibrant argv...`` against ``db``; returns (exit code, stdout, stderr)."""
     monkeypatch.setenv("CALIBRANT_DATABASE_URL", db.url)
     capsys.readouterr()  # drop anything printed before
     code = cli.main(list(argv))
-    return code, capsys.readouterr().out
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
 
 
 def create_key(
@@ -25,7 +26,7 @@ def create_key(
 ) -> str:
     """A new key's token, as printed once by ``calibrant keys create``."""
     argv = ["keys", "create", "--scope", scope] + (["--model", model] if model else [])
-    code, out = run_cli(db, monkeypatch, capsys, *argv)
+    code, out, _err = run_cli(db, monkeypatch, capsys, *argv)
     assert code == 0
     token = out.strip()
     assert token

@@ -82,7 +82,7 @@ def test_revoked_key_is_401(db: Database, monkeypatch, capsys) -> None:
     key_id = db.scalar("SELECT key_id FROM api_keys")
     with make_client(db, auth="required") as client:
         assert _send(client, "ingest-predictions", bearer(token)).status_code == 200
-        code, _ = run_cli(db, monkeypatch, capsys, "keys", "revoke", str(key_id))
+        code, _out, _err = run_cli(db, monkeypatch, capsys, "keys", "revoke", str(key_id))
         assert code == 0
         response = post_predictions(client, "churn", [prediction("b")], headers=bearer(token))
     assert_problem(response, 401)
