@@ -44,12 +44,14 @@ def binary_entropy(p: np.ndarray) -> np.ndarray:
 def variance_from_sums(n: float, s: float, ss: float) -> float:
     """Sample variance (ddof 1) of frequency-weighted data from n = Σw, Σwx, Σwx².
 
-    Clamped at 0: when every value is equal, ss − s²/n cancels to a tiny
-    negative number instead of 0.
+    Clamped at 0: when every value is equal, ss − s²/n cancels to rounding
+    noise (of either sign) instead of 0; a residual below 1e-12·ss is treated
+    as that noise, so equal inputs summed in different orders give the same 0.
     """
     if n <= 1.0:
         return math.nan
-    return max(ss - s * s / n, 0.0) / (n - 1.0)
+    resid = ss - s * s / n
+    return 0.0 if resid <= 1e-12 * abs(ss) else resid / (n - 1.0)
 
 
 def norm_two_sided_p(z: float) -> float:

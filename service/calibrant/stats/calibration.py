@@ -185,7 +185,8 @@ def hosmer_lemeshow_from_groups(
     pbar = e_j / n_j
     denom = n_j * pbar * (1.0 - pbar)
     min_exp = float(np.min(np.minimum(e_j, n_j - e_j)))
-    if np.any(denom <= 0):
+    # mean risk within 1e-14 of 0 or 1 counts as 0 or 1: cumulative-weight sums round
+    if np.any(pbar * (1.0 - pbar) <= 1e-14):
         return HosmerLemeshow(Status.UNDEFINED, "a group has mean risk 0 or 1", n, n_groups=g,
                               min_expected=min_exp, table=table)
     if min_exp < min_expected:
@@ -193,7 +194,8 @@ def hosmer_lemeshow_from_groups(
             Status.INSUFFICIENT_DATA,
             f"a group has fewer than {min_expected:g} expected events or non-events",
             n, n_groups=g, min_expected=min_exp, table=table)
-    c = float(np.sum((o_j - e_j) ** 2 / denom))
+    with np.errstate(over="ignore"):  # a near-0 denominator overflows: caught just below
+        c = float(np.sum((o_j - e_j) ** 2 / denom))
     if finite_or_none(c) is None:
         return HosmerLemeshow(Status.UNDEFINED, "not finite for this input", n, n_groups=g,
                               table=table)

@@ -57,13 +57,15 @@ def _loglik(eta: np.ndarray, y: np.ndarray, w: np.ndarray) -> float:
 
 def _newton(
     X: np.ndarray, y: np.ndarray, w: np.ndarray, offset: np.ndarray, *, max_iter: int = 100,
-    tol: float = 1e-10, max_abs_param: float = 1e3,
+    tol: float = 1e-10, max_abs_param: float = 50.0, max_se: float = 100.0,
 ) -> _Fit | None:
     """Maximum-likelihood logistic fit by Newton–Raphson with step halving.
 
     Returns ``None`` on divergence (separation): no convergence within
-    ``max_iter``, a parameter beyond ``max_abs_param``, or a singular or
-    ill-conditioned (condition number > 1e12) information matrix.
+    ``max_iter``, a parameter beyond ``max_abs_param`` (a logit shift of 50 is
+    not a calibration correction), a standard error above ``max_se`` (a flat,
+    unidentified likelihood), or a singular or ill-conditioned (condition
+    number > 1e12) information matrix.
     """
     beta = np.zeros(X.shape[1])
     if X.shape[1] == 2:
@@ -96,7 +98,10 @@ def _newton(
             info = X.T @ (X * (w * pi * (1.0 - pi))[:, None])
             if np.linalg.cond(info) > 1e12:
                 return None
-            return _Fit(beta, np.linalg.inv(info), ll, it)
+            cov = np.linalg.inv(info)
+            if not np.all(np.sqrt(np.abs(np.diag(cov))) < max_se):
+                return None
+            return _Fit(beta, cov, ll, it)
     return None
 
 
@@ -166,6 +171,14 @@ class Recalibration:
     cov_intercept_slope: float | None = None
     n_extreme_logits: float = 0
     slope_winsorised_16: float | None = None  # sensitivity fit with x clipped to ±16
+
+    @property
+    def status(self) -> Status:
+        return self.slope.status
+
+    @property
+    def ok(self) -> bool:
+        return self.slope.ok
 
 
 def _separated(x: np.ndarray, y: np.ndarray) -> bool:
@@ -285,6 +298,11 @@ class RecalibrationTests:
     joint: Estimate
     calibration_in_the_large: Estimate
     slope_given_intercept: Estimate
+
+    @property
+    def status(self) -> Status:
+        """Status of the joint test (the CITL test can be ok when the slope fit is not)."""
+        return self.joint.status
 
 
 def recalibration_tests_from_logits(

@@ -169,7 +169,7 @@ def log_loss_calibration_z_from_sums(
 ) -> Estimate:
     """z_LL = (LL − E0[LL]) / SD0 = (Sl − SH)/sqrt(Sv), with its two-sided normal p-value.
 
-    ``n1`` and ``max_term`` (max_i w_i p_i(1 − p_i)x_i² for one row) are optional;
+    ``n1`` and ``max_term`` (max_i p_i(1 − p_i)x_i² over single observations) are optional;
     when given, ``extra['normal_approximation_ok']`` is 0 if n1 < 10, n0 < 10 or
     the largest term exceeds 10 % of Sv (METHODS.md 0.3): then prefer a
     parametric bootstrap p-value.
@@ -214,12 +214,12 @@ def log_loss_calibration_z(
     d = as_labelled(y_true, y_proba, sample_weight)
     y, p, w = d.y, d.p, d.w
     x = clipped_logit(p)
-    v = w * p * (1.0 - p) * x * x
+    v = p * (1.0 - p) * x * x  # one observation's null-variance term
     return log_loss_calibration_z_from_sums(
         d.n,
         float(w @ log_loss_terms(y, p)),
         float(w @ binary_entropy(p)),
-        float(v.sum()),
+        float(w @ v),
         n1=d.n1,
         max_term=float(v.max()) if v.size else 0.0,
     )
