@@ -155,3 +155,15 @@ def test_models_keep_their_predictions_apart(db: Database) -> None:
         churn = client.get("/v1/models/churn").json()["counts"]
         fraud = client.get("/v1/models/fraud").json()["counts"]
     assert churn["predictions"] == fraud["predictions"] == 1
+
+
+def test_ids_are_compared_exactly(db: Database) -> None:
+    ids = ["case", "Case", "case ", "cäse", "case\u0301"]
+    with make_client(db) as client:
+        response = post_predictions(client, "churn", [prediction(i) for i in ids])
+        again = post_predictions(client, "churn", [prediction(i) for i in ids])
+        fetched = client.get("/v1/models/churn/cases/Case").json()
+    assert response.json() == {"accepted": 5, "duplicates": 0}
+    assert again.json() == {"accepted": 0, "duplicates": 5}
+    assert fetched["id"] == "Case"
+    assert len(fetched["predictions"]) == 1
