@@ -59,7 +59,6 @@ def upgrade() -> None:
         sa.Column("state", sa.String(16), nullable=False),
         sa.Column("attempts", sa.Integer(), nullable=False),
         sa.Column("next_attempt_at", _instant(), nullable=True),
-        sa.Column("deadline_at", _instant(), nullable=False),
         sa.Column("claim_token", sa.String(40), nullable=True),
         sa.Column("claimed_until", _instant(), nullable=True),
         sa.Column("created_at", _instant(), nullable=False),

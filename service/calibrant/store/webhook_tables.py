@@ -70,10 +70,9 @@ class WebhookDelivery(Base):
     state: Mapped[str] = mapped_column(String(16))
     attempts: Mapped[int] = mapped_column(Integer, default=0)
     next_attempt_at: Mapped[datetime | None] = mapped_column(nullable=True)
-    deadline_at: Mapped[datetime]  # no attempt is started after this instant
     claim_token: Mapped[str | None] = mapped_column(String(40), nullable=True)
     claimed_until: Mapped[datetime | None] = mapped_column(nullable=True)
-    created_at: Mapped[datetime]
+    created_at: Mapped[datetime]  # with the retry window, when attempts stop
     finished_at: Mapped[datetime | None] = mapped_column(nullable=True)
 
     __table_args__ = (
