@@ -10,11 +10,13 @@ from sqlalchemy import Engine
 
 import calibrant
 from calibrant.api import problems
-from calibrant.api.routes import health, ingest, models
+from calibrant.api.routes import health, ingest, metrics, models, refresh, webhooks
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import add_body_schemas
 from calibrant.clock import Clock, SystemClock
 from calibrant.config import Settings
+from calibrant.notify.senders import Sender, sender_from_settings
+from calibrant.notify.targets import Resolver, system_resolver
 from calibrant.store.engine import make_engine, make_session_factory
 
 DESCRIPTION = """Calibrant joins the probabilities your deployed binary classifiers emit with the
@@ -25,15 +27,24 @@ qualified review where decisions affect people."""
 
 
 def create_app(
-    settings: Settings, *, engine: Engine | None = None, clock: Clock | None = None
+    settings: Settings,
+    *,
+    engine: Engine | None = None,
+    clock: Clock | None = None,
+    webhook_sender: Sender | None = None,
+    resolver: Resolver | None = None,
 ) -> FastAPI:
     owns_engine = engine is None
     engine = engine or make_engine(settings)
+    resolver = resolver or system_resolver
     runtime = Runtime(
         settings=settings,
         engine=engine,
         sessions=make_session_factory(engine),
         clock=clock or SystemClock(),
+        webhook_sender=webhook_sender
+        or sender_from_settings(settings.webhook_allow_private, settings.webhook_sender, resolver),
+        resolver=resolver,
     )
 
     @asynccontextmanager
@@ -53,6 +64,9 @@ def create_app(
     app.include_router(health.router)
     app.include_router(ingest.router)
     app.include_router(models.router)
+    app.include_router(metrics.router)
+    app.include_router(refresh.router)
+    app.include_router(webhooks.router)
 
     def openapi() -> dict:
         if app.openapi_schema is None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TypeVar
 
 from sqlalchemy import Engine
@@ -14,6 +14,8 @@ from starlette.concurrency import run_in_threadpool
 
 from calibrant.clock import Clock
 from calibrant.config import Settings
+from calibrant.notify.senders import LoggingSender, Sender
+from calibrant.notify.targets import Resolver, system_resolver
 
 T = TypeVar("T")
 
@@ -27,6 +29,8 @@ class Runtime:
     engine: Engine
     sessions: sessionmaker[Session]
     clock: Clock
+    webhook_sender: Sender = field(default_factory=LoggingSender)
+    resolver: Resolver = system_resolver  # webhook targets' names -> addresses
 
     def unit_of_work(self, work: Callable[[Session], T], attempts: int = 3) -> T:
         """Run ``work`` in one transaction and commit; a return means committed.

@@ -11,6 +11,8 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from calibrant.api.webhook_schemas import OutboxHealth
+
 
 class PredictionIn(BaseModel):
     model_config = ConfigDict(extra="forbid")
@@ -104,6 +106,7 @@ class Health(BaseModel):
     status: Literal["ok", "degraded"]
     database: Literal["ok", "unreachable"]
     detail: dict[str, Any] = Field(default_factory=dict)
+    outbox: OutboxHealth | None = Field(None, description="Webhook deliveries waiting, failing targets.")
 
 
 PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {

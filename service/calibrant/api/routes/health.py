@@ -10,6 +10,8 @@ from starlette.concurrency import run_in_threadpool
 
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import Health
+from calibrant.api.webhook_schemas import OutboxHealth
+from calibrant.store import outbox_repo, webhook_targets_repo
 
 router = APIRouter(tags=["health"])
 
@@ -30,5 +32,21 @@ async def healthz(request: Request) -> JSONResponse:
     if error:
         health = Health(status="degraded", database="unreachable", detail={"error": error})
         return JSONResponse(health.model_dump(), status_code=503)
-    health = Health(status="ok", database="ok", detail={"dialect": runtime.engine.dialect.name})
-    return JSONResponse(health.model_dump())
+    outbox = await run_in_threadpool(_outbox, runtime)
+    health = Health(
+        status="ok", database="ok", detail={"dialect": runtime.engine.dialect.name}, outbox=outbox
+    )
+    return JSONResponse(health.model_dump(mode="json"))
+
+
+def _outbox(runtime: Runtime) -> OutboxHealth:
+    """The webhook backlog and the targets that keep failing (they do not make the service degraded)."""
+    with runtime.sessions() as session:
+        backlog = outbox_repo.backlog(session, runtime.clock.now())
+        failing = [t.id for t in webhook_targets_repo.failing(session)]
+    return OutboxHealth(
+        pending=backlog.pending,
+        due=backlog.due,
+        oldest_pending_at=backlog.oldest_pending_at,
+        failing_webhooks=failing,
+    )

@@ -1,0 +1,90 @@
+"""HTTP schemas of /v1/webhooks: create, update, public view, the delivery log, outbox health."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+EventKind = Literal["alarm.opened", "alarm.resolved"]
+MODEL_NAME = r"^[a-z0-9][a-z0-9_-]{0,63}$"
+
+
+class WebhookCreate(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    url: str = Field(min_length=1, max_length=2000, description="http or https URL of the receiver.")
+    description: str = Field("", max_length=500)
+    model: str | None = Field(None, pattern=MODEL_NAME, description="Only this model's events; null: all.")
+    event_kinds: list[EventKind] = Field(
+        default_factory=lambda: ["alarm.opened", "alarm.resolved"], min_length=1, max_length=10
+    )
+
+
+class WebhookUpdate(BaseModel):
+    """Merge: an absent field is unchanged; ``model: null`` removes the model filter."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    url: str | None = Field(None, min_length=1, max_length=2000)
+    description: str | None = Field(None, max_length=500)
+    model: str | None = Field(None, pattern=MODEL_NAME)
+    event_kinds: list[EventKind] | None = Field(None, min_length=1, max_length=10)
+
+
+class WebhookOut(BaseModel):
+    id: int
+    url: str
+    description: str
+    model: str | None
+    event_kinds: list[str]
+    failing: bool = Field(description="True after repeated consecutive failed attempts.")
+    failing_since: datetime | None
+    consecutive_failures: int
+    last_success_at: datetime | None
+    created_at: datetime
+    updated_at: datetime
+
+
+class WebhookCreated(WebhookOut):
+    secret: str = Field(
+        description="Standard Webhooks signing secret (whsec_…). Shown only in this response."
+    )
+
+
+class WebhookList(BaseModel):
+    webhooks: list[WebhookOut]
+    count: int
+
+
+class AttemptOut(BaseModel):
+    number: int
+    attempted_at: datetime
+    status_code: int | None = Field(description="The receiver's HTTP status; null if none came back.")
+    latency_ms: float
+    error: str | None = Field(description="Connection error, timeout or refused address.")
+    next_attempt_at: datetime | None = Field(description="When the next retry is due; null if none.")
+
+
+class DeliveryOut(BaseModel):
+    id: int
+    webhook_id: str = Field(description="The `webhook-id` header, the same on every attempt.")
+    event_type: str
+    state: Literal["pending", "delivered", "failed"]
+    created_at: datetime
+    next_attempt_at: datetime | None
+    finished_at: datetime | None
+    attempts: list[AttemptOut]
+
+
+class DeliveryList(BaseModel):
+    deliveries: list[DeliveryOut]
+    count: int
+
+
+class OutboxHealth(BaseModel):
+    pending: int = Field(description="Deliveries not yet delivered or given up.")
+    due: int = Field(description="Pending deliveries whose next attempt is due now.")
+    oldest_pending_at: datetime | None
+    failing_webhooks: list[int] = Field(description="Ids of targets that keep failing.")
