@@ -6,15 +6,18 @@ A composition root: it reads Settings once and wires the layers together.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import sys
 from collections.abc import Sequence
 
 import uvicorn
 from pydantic import ValidationError
 
+from calibrant import scheduler
 from calibrant.api.app import create_app
 from calibrant.clock import SystemClock
 from calibrant.config import Settings
+from calibrant.jobs import JobContext, run_all
 from calibrant.store import audit, keys_repo, migrate
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.keys_repo import Scope
@@ -52,8 +55,30 @@ def cmd_serve(args: argparse.Namespace) -> int:
                     file=sys.stderr,
                 )
                 return 2
-    app = create_app(settings, engine=engine)
+    app = create_app(settings, engine=engine, run_scheduler=not args.no_scheduler)
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level)
+    return 0
+
+
+def _job_context(settings: Settings) -> JobContext:
+    return JobContext(make_engine(settings), SystemClock(), settings)
+
+
+def cmd_refresh(args: argparse.Namespace) -> int:
+    ctx = _job_context(_settings())
+    report = run_all(ctx)
+    for job, figures in report["jobs"].items():
+        shown = ", ".join(f"{k}={v}" for k, v in figures.items()) or "nothing to do"
+        print(f"{job}: {shown}")
+    ctx.engine.dispose()
+    return 0
+
+
+def cmd_scheduler(args: argparse.Namespace) -> int:
+    settings = _settings()
+    print(f"running scheduled jobs every {settings.refresh_seconds:g} s; Ctrl-C stops", file=sys.stderr)
+    with contextlib.suppress(KeyboardInterrupt):
+        scheduler.run_forever(_job_context(settings))
     return 0
 
 
@@ -119,7 +144,15 @@ def build_parser() -> argparse.ArgumentParser:
     serve = sub.add_parser("serve", help="run the HTTP API")
     serve.add_argument("--host", help="address to listen on (CALIBRANT_HOST, default 127.0.0.1)")
     serve.add_argument("--port", type=int, help="port (CALIBRANT_PORT, default 8000)")
+    serve.add_argument(
+        "--no-scheduler", action="store_true", help="serve only; run `calibrant scheduler` elsewhere"
+    )
     serve.set_defaults(func=cmd_serve)
+
+    sub.add_parser("refresh", help="run every job until no work is left").set_defaults(func=cmd_refresh)
+    sub.add_parser("scheduler", help="run the scheduled jobs without serving").set_defaults(
+        func=cmd_scheduler
+    )
 
     mig = sub.add_parser("migrate", help="create or upgrade the database schema")
     mig.set_defaults(func=cmd_migrate)

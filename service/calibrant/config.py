@@ -47,6 +47,9 @@ class Settings(BaseSettings):
     sqlite_cache_mib: int = Field(64, ge=1, description="SQLite page cache per connection.")
     db_pool_size: int = Field(5, ge=1, description="Connections kept per process (PostgreSQL).")
     log_level: str = Field("info", description="uvicorn/app log level.")
+    refresh_seconds: float = Field(
+        60.0, gt=0, le=86_400, description="Interval of the scheduled jobs (refresh, delivery)."
+    )
     webhook_allow_private: bool = Field(
         False,
         description="Permit webhook targets on private and loopback addresses (never link-local "

@@ -40,7 +40,7 @@ def test_probability_column_is_float64(db: Database) -> None:
         assert type_name == "DOUBLE PRECISION"
 
 
-def test_sqlite_connection_pragmas(tmp_path) -> None:  # noqa: ANN001
+def test_sqlite_connection_pragmas(tmp_path) -> None:
     engine = make_engine(Settings(database_url=f"sqlite:///{tmp_path / 'p.db'}"))
     with engine.connect() as conn:
         assert conn.exec_driver_sql("PRAGMA journal_mode").scalar() == "wal"

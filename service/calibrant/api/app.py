@@ -9,6 +9,7 @@ from fastapi import FastAPI
 from sqlalchemy import Engine
 
 import calibrant
+from calibrant import scheduler
 from calibrant.api import problems
 from calibrant.api.routes import health, ingest, metrics, models, refresh, webhooks
 from calibrant.api.runtime import Runtime
@@ -33,6 +34,7 @@ def create_app(
     clock: Clock | None = None,
     webhook_sender: Sender | None = None,
     resolver: Resolver | None = None,
+    run_scheduler: bool = False,
 ) -> FastAPI:
     owns_engine = engine is None
     engine = engine or make_engine(settings)
@@ -49,7 +51,13 @@ def create_app(
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
+        # `calibrant serve` runs the jobs in-process unless told not to (several replicas).
+        jobs = scheduler.build(runtime.job_context()) if run_scheduler else None
+        if jobs is not None:
+            jobs.start()
         yield
+        if jobs is not None:
+            jobs.shutdown(wait=False)
         if owns_engine:
             engine.dispose()
 

@@ -14,6 +14,7 @@ from starlette.concurrency import run_in_threadpool
 
 from calibrant.clock import Clock
 from calibrant.config import Settings
+from calibrant.jobs import JobContext
 from calibrant.notify.senders import LoggingSender, Sender
 from calibrant.notify.targets import Resolver, system_resolver
 
@@ -54,6 +55,9 @@ class Runtime:
                     raise
                 return result
         raise AssertionError("unreachable")
+
+    def job_context(self) -> JobContext:
+        return JobContext(self.engine, self.clock, self.settings, self.webhook_sender)
 
     async def run(self, work: Callable[[Session], T]) -> T:
         """``unit_of_work`` off the event loop, in the thread pool."""

@@ -16,7 +16,7 @@ from calibrant.models.settings import (
     consistency_problem,
     merged,
 )
-from calibrant.store import audit, cases, models_repo
+from calibrant.store import audit, cases, dirty, models_repo
 from calibrant.store.tables import Model
 
 SETTING_NAMES = (
@@ -70,6 +70,7 @@ def put_settings(
         setattr(model, key, value)
     if any(k in changed for k in SUMMARY_SETTINGS):
         model.settings_generation += 1
+        dirty.mark_whole_model(session.connection(), model.id, clock.now())
     if changed or created:
         model.updated_at = clock.now()
         audit.record(

@@ -80,7 +80,7 @@ def observed_expected(
 
 
 # ----------------------------------------------------------------------------- Spiegelhalter
-def spiegelhalter_sums_from_power_sums(  # noqa: PLR0917 sums in METHODS.md order
+def spiegelhalter_sums_from_power_sums(
     n1: float, S1_pos: float, S1: float, S2: float, S3: float, S4: float
 ) -> tuple[float, float]:
     """(numerator, null variance) of Spiegelhalter's z from power sums (summary path).

@@ -48,7 +48,7 @@ def ece_from_bin_sums(counts: ArrayLike, sum_p: ArrayLike, sum_y: ArrayLike) -> 
         "min_bin_count": float(c[nz].min())})
 
 
-def _ece(  # noqa: PLR0917 private, mirrors the public signature
+def _ece(
     y_true, y_proba, sample_weight, n_bins, strategy, closed) -> Estimate:
     n_bins = check_n_bins(n_bins)
     strategy = check_strategy(strategy)

@@ -169,7 +169,7 @@ def psi(
     return psi_from_counts(r, c, smoothing=smoothing, n_null=n_null, seed=seed)
 
 
-def _histograms(  # noqa: PLR0917 private helper
+def _histograms(
     reference, current, edges, n_bins, reference_weight, current_weight):
     e = (reference_bin_edges(reference, n_bins=n_bins, sample_weight=reference_weight)
          if edges is None else np.asarray(edges, dtype=np.float64))

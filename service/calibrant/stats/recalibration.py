@@ -198,7 +198,7 @@ def logistic_recalibration_from_logits(
     return _recal(d.y, x, d.w, d.n1, d.n0, min_events)
 
 
-def _recal(  # noqa: PLR0917 private kernel
+def _recal(
     y, x, w, n1: float, n0: float, min_events: int) -> Recalibration:
     n = n1 + n0
     why = _undefined_classes(n1, n0)
@@ -320,7 +320,7 @@ def _lr(stat: float, df: int, n: float) -> Estimate:
     return estimate(stat, n=n, extra={"df": df, "p_value": float(stats.chi2.sf(stat, df))})
 
 
-def _tests(  # noqa: PLR0917 private kernel
+def _tests(
     y, x, w, n1: float, n0: float, min_events: int) -> RecalibrationTests:
     n = n1 + n0
     ll0 = _loglik(x, y, w)

@@ -278,7 +278,7 @@ def log_loss_skill(
 
 
 # ----------------------------------------------------------------------------- Brier
-def squared_error_sums_from_power_sums(  # noqa: PLR0917 sums in METHODS.md order
+def squared_error_sums_from_power_sums(
     n1: float, S1_pos: float, S2_pos: float, S3_pos: float, S2: float, S4: float
 ) -> tuple[float, float]:
     """(Σ(p − y)², Σ(p − y)⁴) from class-split power sums (for the summary path).

@@ -1,0 +1,62 @@
+"""Calendar periods in UTC: days, ISO weeks (Monday 00:00) and months, half-open."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta
+from enum import StrEnum
+
+
+class Granularity(StrEnum):
+    DAY = "day"
+    WEEK = "week"
+    MONTH = "month"
+
+
+@dataclass(frozen=True, slots=True)
+class Period:
+    start: datetime
+    end: datetime
+    window_start: datetime | None = None  # set when a trailing window is asked for
+
+    @property
+    def data_start(self) -> datetime:
+        """Where the rows this period reports on begin: its own start or its window's."""
+        return self.window_start if self.window_start is not None else self.start
+
+
+def _floor(instant: datetime, granularity: Granularity) -> datetime:
+    day = instant.astimezone(UTC).replace(hour=0, minute=0, second=0, microsecond=0)
+    if granularity is Granularity.DAY:
+        return day
+    if granularity is Granularity.WEEK:
+        return day - timedelta(days=day.weekday())
+    return day.replace(day=1)
+
+
+def _next(start: datetime, granularity: Granularity) -> datetime:
+    if granularity is Granularity.DAY:
+        return start + timedelta(days=1)
+    if granularity is Granularity.WEEK:
+        return start + timedelta(days=7)
+    return start.replace(year=start.year + 1, month=1) if start.month == 12 else start.replace(
+        month=start.month + 1
+    )
+
+
+def periods(
+    start: datetime, end: datetime, granularity: Granularity, window_days: int | None = None
+) -> list[Period]:
+    """Every whole calendar period overlapping [start, end), oldest first.
+
+    With ``window_days`` each period also reports a trailing window of that many
+    days ending at the period's end.
+    """
+    out: list[Period] = []
+    cursor = _floor(start, granularity)
+    while cursor < end:
+        nxt = _next(cursor, granularity)
+        window = nxt - timedelta(days=window_days) if window_days else None
+        out.append(Period(cursor, nxt, window))
+        cursor = nxt
+    return out

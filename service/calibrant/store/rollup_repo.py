@@ -1,0 +1,167 @@
+"""All SQL of the rollup: raw rows of a bucket, summaries in and out, segment values, job runs."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+
+import numpy as np
+from sqlalchemy import Connection, delete, func, insert, select
+from sqlalchemy.dialects.postgresql import insert as postgresql_insert
+from sqlalchemy.dialects.sqlite import insert as sqlite_insert
+
+from calibrant.store.dirty import BucketKey
+from calibrant.store.rollup_tables import BucketSummary, JobRun, ReferenceSample, SegmentValue
+from calibrant.store.tables import Outcome, Prediction
+
+HOUR = timedelta(hours=1)
+_INSERT = {"postgresql": postgresql_insert, "sqlite": sqlite_insert}
+
+
+@dataclass(frozen=True, slots=True)
+class RawChunk:
+    probability: np.ndarray  # float64
+    label: np.ndarray  # int8: 1, 0, or -1 when no outcome yet
+    tags: list[str | None]  # canonical JSON per row
+
+
+def bucket_rows(conn: Connection, key: BucketKey, chunk_rows: int) -> Iterator[RawChunk]:
+    """The bucket's predictions joined with their outcomes, ``chunk_rows`` at a time."""
+    query = (
+        select(Prediction.probability, Outcome.label, Prediction.tags)
+        .select_from(Prediction)
+        .outerjoin(
+            Outcome,
+            (Outcome.model_id == Prediction.model_id) & (Outcome.case_id == Prediction.case_id),
+        )
+        .where(
+            Prediction.model_id == key.model_id,
+            Prediction.version == key.version,
+            Prediction.scored_at >= key.hour,
+            Prediction.scored_at < key.hour + HOUR,
+        )
+    )
+    result = conn.execution_options(yield_per=chunk_rows).execute(query)
+    for rows in result.partitions(chunk_rows):
+        p, y, t = zip(*rows, strict=True)
+        yield RawChunk(
+            np.asarray(p, dtype=np.float64),
+            np.asarray([-1 if v is None else v for v in y], dtype=np.int8),
+            list(t),
+        )
+
+
+def replace_summaries(
+    conn: Connection, key: BucketKey, summaries: dict[tuple[str, str], tuple[int, bytes]], now: datetime
+) -> None:
+    """Make the bucket's stored summaries exactly ``summaries`` (segments that vanished go)."""
+    conn.execute(
+        delete(BucketSummary).where(
+            BucketSummary.model_id == key.model_id,
+            BucketSummary.version == key.version,
+            BucketSummary.hour == key.hour,
+        )
+    )
+    if summaries:
+        conn.execute(
+            insert(BucketSummary),
+            [
+                {
+                    "model_id": key.model_id,
+                    "version": key.version,
+                    "segment_key": seg_key,
+                    "segment_value": seg_value,
+                    "hour": key.hour,
+                    "n": n,
+                    "payload": payload,
+                    "computed_at": now,
+                }
+                for (seg_key, seg_value), (n, payload) in sorted(summaries.items())
+            ],
+        )
+
+
+def segment_values(conn: Connection, model_id: int) -> dict[str, list[str]]:
+    rows = conn.execute(
+        select(SegmentValue.segment_key, SegmentValue.segment_value)
+        .where(SegmentValue.model_id == model_id)
+        .order_by(SegmentValue.first_seen, SegmentValue.segment_value)
+    )
+    out: dict[str, list[str]] = {}
+    for k, v in rows:
+        out.setdefault(k, []).append(v)
+    return out
+
+
+def add_segment_values(conn: Connection, model_id: int, key: str, values: list[str], now: datetime) -> None:
+    """Record newly seen values; a value another refresher recorded first is kept as it is."""
+    if values:
+        conn.execute(
+            _INSERT[conn.dialect.name](SegmentValue).on_conflict_do_nothing(),
+            [
+                {"model_id": model_id, "segment_key": key, "segment_value": v, "first_seen": now}
+                for v in values
+            ],
+        )
+
+
+@dataclass(frozen=True, slots=True)
+class StoredSummary:
+    hour: datetime
+    version: str
+    payload: bytes
+
+
+def summaries_between(
+    conn: Connection,
+    model_id: int,
+    start: datetime,
+    end: datetime,
+    *,
+    segment: tuple[str, str],
+    version: str | None,
+) -> list[StoredSummary]:
+    """Hourly summaries with start <= hour < end, of one version or all."""
+    query = select(BucketSummary.hour, BucketSummary.version, BucketSummary.payload).where(
+        BucketSummary.model_id == model_id,
+        BucketSummary.segment_key == segment[0],
+        BucketSummary.segment_value == segment[1],
+        BucketSummary.hour >= start,
+        BucketSummary.hour < end,
+    )
+    if version is not None:
+        query = query.where(BucketSummary.version == version)
+    return [StoredSummary(h, v, bytes(p)) for h, v, p in conn.execute(query.order_by(BucketSummary.hour))]
+
+
+def reference_sample(conn: Connection, model_id: int) -> bytes | None:
+    row = conn.execute(
+        select(ReferenceSample.payload).where(ReferenceSample.model_id == model_id)
+    ).first()
+    return None if row is None else bytes(row[0])
+
+
+def save_reference_sample(
+    conn: Connection, model_id: int, n: int, payload: bytes, description: str, now: datetime
+) -> None:
+    conn.execute(delete(ReferenceSample).where(ReferenceSample.model_id == model_id))
+    conn.execute(
+        insert(ReferenceSample).values(
+            model_id=model_id, n=n, payload=payload, description=description, uploaded_at=now
+        )
+    )
+
+
+def record_job_run(
+    conn: Connection, job: str, worker: str, started: datetime, finished: datetime, units: int, rows: int
+) -> None:
+    conn.execute(
+        insert(JobRun).values(
+            job=job, worker=worker, started_at=started, finished_at=finished, units=units, rows=rows
+        )
+    )
+
+
+def last_job_run(conn: Connection, job: str) -> datetime | None:
+    return conn.execute(select(func.max(JobRun.finished_at)).where(JobRun.job == job)).scalar()
