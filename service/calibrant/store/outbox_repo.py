@@ -75,12 +75,15 @@ def claim_due(
     candidates = select(D.id).where(_claimable(now)).order_by(D.next_attempt_at, D.id).limit(limit)
     if only_ids is not None:
         candidates = candidates.where(D.id.in_(only_ids))
-    candidates = candidates.with_for_update(skip_locked=True)  # rendered on PostgreSQL only
+    # FOR UPDATE SKIP LOCKED is rendered on PostgreSQL only. The candidates are a CTE, which
+    # PostgreSQL evaluates once: as an IN (subquery) it may be re-run for each updated row,
+    # each run skipping the rows this statement just locked, so LIMIT would not hold.
+    due = candidates.with_for_update(skip_locked=True).cte("due")
     # The outer WHERE repeats the conditions: a row that another claimer changed after this
     # statement's snapshot is re-checked against its new version and left alone.
     statement = (
         update(D)
-        .where(D.id.in_(candidates.scalar_subquery()), _claimable(now))
+        .where(D.id == due.c.id, _claimable(now))
         .values(claim_token=token, claimed_until=now + lease)
         .returning(D.id)
         .execution_options(synchronize_session=False)
