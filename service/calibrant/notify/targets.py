@@ -65,12 +65,16 @@ def address_refusal(address: IPAddress, *, allow_private: bool) -> str | None:
         address = address.ipv4_mapped  # ::ffff:169.254.169.254 is 169.254.169.254
     if any(address in network for network in _ALWAYS_REFUSED_NETWORKS):
         return f"{address} is a link-local or cloud metadata address"
-    if address.is_multicast or address.is_unspecified or address.is_reserved:
+    if address.is_multicast or address.is_unspecified:
         return f"{address} is not a unicast host address"
+    if address.is_loopback:  # before is_reserved: Python counts ::1 as reserved too
+        return None if allow_private else (
+            f"{address} is a loopback address (set CALIBRANT_WEBHOOK_ALLOW_PRIVATE=true to allow)"
+        )
+    if address.is_reserved:
+        return f"{address} is in a reserved range"
     if allow_private:
         return None
-    if address.is_loopback:
-        return f"{address} is a loopback address (set CALIBRANT_WEBHOOK_ALLOW_PRIVATE=true to allow)"
     if address.is_private or not address.is_global:
         return f"{address} is a private address (set CALIBRANT_WEBHOOK_ALLOW_PRIVATE=true to allow)"
     return None
