@@ -19,6 +19,7 @@ from pathlib import Path
 import pytest
 import sqlalchemy as sa
 from fastapi.testclient import TestClient
+from hypothesis import settings as hypothesis_settings
 
 from calibrant.api.app import create_app
 from calibrant.clock import Clock
@@ -29,6 +30,12 @@ from calibrant.store.schema import Base
 
 DEFAULT_PG_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
 IN_CI = os.environ.get("CI", "").lower() == "true"
+
+# CI replays the same generated examples every run, so a red build always reproduces;
+# local runs keep exploring new examples.
+hypothesis_settings.register_profile("ci", derandomize=True, print_blob=True)
+if IN_CI:
+    hypothesis_settings.load_profile("ci")
 
 
 def postgres_base_url() -> str:
