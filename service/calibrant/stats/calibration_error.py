@@ -160,7 +160,8 @@ def lowess(
         if r <= 0:
             out[i] = float(w[xs == x0] @ ys[xs == x0]) / float(w[xs == x0].sum())
             continue
-        u = np.clip(dist / r, 0.0, 1.0)
+        with np.errstate(over="ignore"):  # r may be subnormal; the clip bounds the ratio anyway
+            u = np.clip(dist / r, 0.0, 1.0)
         kw = w * (1.0 - u**3) ** 3
         s = kw.sum()
         if np.sum(w[kw > 1e-12]) < 2:
