@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from collections.abc import Callable
+from typing import Annotated, TypeVar
 
 from fastapi import APIRouter, Depends, Request
 
@@ -21,6 +22,7 @@ from calibrant.ingest import service
 from calibrant.store.keys_repo import Scope
 
 router = APIRouter(prefix="/v1/models/{model}", tags=["ingest"])
+T = TypeVar("T")
 IngestCaller = Annotated[Principal, Depends(requires(Scope.INGEST))]
 
 
@@ -32,18 +34,7 @@ IngestCaller = Annotated[Principal, Depends(requires(Scope.INGEST))]
     summary="Store scored cases (all or nothing; re-posts are harmless)",
 )
 async def post_predictions(model: str, request: Request, caller: IngestCaller) -> PredictionsAccepted:
-    runtime: Runtime = request.app.state.runtime
-    body = await read_capped(request, runtime.settings.max_body_bytes)
-    result = await runtime.run(
-        lambda session: service.ingest_predictions(
-            session,
-            model,
-            body,
-            max_items=runtime.settings.max_batch_items,
-            clock=runtime.clock,
-            actor=caller.actor,
-        )
-    )
+    result = await _ingest(request, caller, model, service.ingest_predictions)
     return PredictionsAccepted(accepted=result.accepted, duplicates=result.duplicates)
 
 
@@ -55,10 +46,18 @@ async def post_predictions(model: str, request: Request, caller: IngestCaller) -
     summary="Store true outcomes of cases (new, duplicate or correction)",
 )
 async def post_outcomes(model: str, request: Request, caller: IngestCaller) -> OutcomesAccepted:
+    result = await _ingest(request, caller, model, service.ingest_outcomes)
+    return OutcomesAccepted(
+        accepted=result.accepted, duplicates=result.duplicates, corrected=result.corrected
+    )
+
+
+async def _ingest(request: Request, caller: Principal, model: str, use_case: Callable[..., T]) -> T:
+    """Read the capped body, run one ingest use case in a committed unit of work."""
     runtime: Runtime = request.app.state.runtime
     body = await read_capped(request, runtime.settings.max_body_bytes)
-    result = await runtime.run(
-        lambda session: service.ingest_outcomes(
+    return await runtime.run(
+        lambda session: use_case(
             session,
             model,
             body,
@@ -66,7 +65,4 @@ async def post_outcomes(model: str, request: Request, caller: IngestCaller) -> O
             clock=runtime.clock,
             actor=caller.actor,
         )
-    )
-    return OutcomesAccepted(
-        accepted=result.accepted, duplicates=result.duplicates, corrected=result.corrected
     )
