@@ -5,6 +5,14 @@ into the real table with set-based SQL that is the same on both dialects.
 PostgreSQL fills the staging table with binary ``COPY`` (about 5x faster than
 multi-row INSERT here, see ENGINEERING notes); SQLite with one
 ``executemany`` inside the already-open write transaction.
+
+``append_if_all_new`` is the PostgreSQL fast path for the common clean
+batch: the rows go straight into the real table with ``COPY`` inside a
+savepoint, and the first key that already exists undoes the attempt so the
+caller merges via staging. Measured per 10,000-row batch (write + commit):
+59.9 ms against 79.3 ms for staging + merge. On SQLite the same idea
+(executemany into the real table) measured no gain (168 ms against 163 ms),
+so SQLite always merges.
 """
 
 from __future__ import annotations
@@ -13,6 +21,7 @@ from collections.abc import Sequence
 from datetime import datetime
 from typing import Any
 
+import psycopg
 from sqlalchemy import Connection, text
 
 # column name -> (PostgreSQL type, SQLite type)
@@ -85,6 +94,47 @@ def _stage_sqlite(conn: Connection, table: str, columns: StagingColumns, rows: l
     raw = conn.connection.driver_connection
     sql = f"INSERT INTO temp.{table} ({names}) VALUES ({placeholders})"  # noqa: S608 — constants
     raw.executemany(sql, rows)
+
+
+PREDICTION_COLUMNS: StagingColumns = (
+    ("model_id", "int4", "INTEGER"),
+    ("case_id", "text", "TEXT"),
+    ("version", "text", "TEXT"),
+    ("probability", "float8", "REAL"),
+    ("scored_at", "timestamptz", "TEXT"),
+    ("tags", "text", "TEXT"),
+    ("received_at", "timestamptz", "TEXT"),
+)
+
+# Errors that mean "some key is taken (or was being taken concurrently)": the
+# attempt is undone and the batch goes through the merging path instead.
+_TAKEN_KEY_ERRORS = (psycopg.errors.UniqueViolation, psycopg.errors.DeadlockDetected)
+
+
+def append_if_all_new(conn: Connection, table: str, columns: StagingColumns, rows: list[tuple]) -> bool:
+    """Insert ``rows`` into ``table`` if none of their keys exists; else write nothing, return False.
+
+    PostgreSQL only (see the module notes for SQLite): one binary ``COPY`` into the
+    real table, which costs what the database's own bulk load costs. A unique
+    violation, also one raised after waiting for a concurrent writer of the
+    same key, rolls back to the savepoint. Callers pass rows in key order so
+    that concurrent overlapping batches lock keys in the same order.
+    """
+    assert conn.dialect.name == "postgresql", "SQLite batches always merge via staging"
+    conn.exec_driver_sql("SAVEPOINT append_if_all_new")
+    try:
+        raw = conn.connection.driver_connection
+        names = ", ".join(name for name, _, _ in columns)
+        with raw.cursor() as cur, cur.copy(f"COPY {table} ({names}) FROM STDIN (FORMAT BINARY)") as copy:
+            copy.set_types([pg.split()[0] for _, pg, _ in columns])
+            for row in rows:
+                copy.write_row(row)
+    except _TAKEN_KEY_ERRORS:
+        conn.exec_driver_sql("ROLLBACK TO SAVEPOINT append_if_all_new")
+        conn.exec_driver_sql("RELEASE SAVEPOINT append_if_all_new")
+        return False
+    conn.exec_driver_sql("RELEASE SAVEPOINT append_if_all_new")
+    return True
 
 
 def _with_sqlite_times(row: tuple, positions: list[int]) -> tuple:

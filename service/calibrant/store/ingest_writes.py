@@ -1,7 +1,9 @@
 """Idempotent writes of predictions and outcomes (all SQL of the ingest path).
 
-Predictions: ``INSERT … SELECT … ON CONFLICT DO NOTHING`` from the staging
-table; its row count separates new rows from re-posts. Rows that were not new
+Predictions: on PostgreSQL a batch whose keys are all new is appended with
+one ``COPY`` (``bulk.append_if_all_new``). Otherwise it is merged with ``INSERT … SELECT …
+ON CONFLICT DO NOTHING`` from the staging table; its row count separates new
+rows from re-posts. Rows that were not new
 are compared with what is stored; any difference rejects the whole batch.
 Concurrent writers of the same key are safe on PostgreSQL because the
 conflicting INSERT waits for the other transaction and the comparison runs
@@ -21,7 +23,14 @@ from sqlalchemy import Connection, String, text
 
 from calibrant.store import dirty
 from calibrant.store.batches import OutcomeColumns, PredictionColumns
-from calibrant.store.bulk import OUTCOME_STAGING, PREDICTION_STAGING, db_instant, stage
+from calibrant.store.bulk import (
+    OUTCOME_STAGING,
+    PREDICTION_COLUMNS,
+    PREDICTION_STAGING,
+    append_if_all_new,
+    db_instant,
+    stage,
+)
 from calibrant.store.dirty import BucketKey, hour_of
 from calibrant.store.types import UTCDateTime
 
@@ -52,6 +61,43 @@ class OutcomeWrite:
 def insert_predictions(
     conn: Connection, model_id: int, batch: PredictionColumns, received_at: datetime
 ) -> PredictionWrite:
+    if _append_clean_batch(conn, model_id, batch, received_at):
+        inserted, conflicts = len(batch), []
+    else:
+        inserted, conflicts = _merge_via_staging(conn, model_id, batch, received_at)
+    if inserted and not conflicts:
+        buckets = {(v, hour_of(t)) for v, t in zip(batch.version, batch.scored_at, strict=True)}
+        dirty.mark(conn, (BucketKey(model_id, v, h) for v, h in buckets), received_at)
+    return PredictionWrite(inserted, len(batch) - inserted, conflicts)
+
+
+def _append_clean_batch(
+    conn: Connection, model_id: int, batch: PredictionColumns, received_at: datetime
+) -> bool:
+    """Most batches are entirely new: on PostgreSQL write them with one COPY, no staging or merge."""
+    if conn.dialect.name != "postgresql":
+        return False  # measured no gain on SQLite (bulk.py)
+    # Key order (code points = the "C" collation of case_id) keeps concurrent overlapping
+    # appends from deadlocking, as the ORDER BY of the merge does.
+    order = sorted(range(len(batch)), key=lambda i: (batch.case_id[i], batch.version[i]))
+    rows = [
+        (
+            model_id,
+            batch.case_id[i],
+            batch.version[i],
+            batch.probability[i],
+            batch.scored_at[i],
+            batch.tags[i],
+            received_at,
+        )
+        for i in order
+    ]
+    return append_if_all_new(conn, "predictions", PREDICTION_COLUMNS, rows)
+
+
+def _merge_via_staging(
+    conn: Connection, model_id: int, batch: PredictionColumns, received_at: datetime
+) -> tuple[int, list[PredictionConflict]]:
     rows = list(
         zip(
             range(len(batch)),
@@ -89,10 +135,7 @@ def insert_predictions(
             {"model_id": model_id},
         )
         conflicts = [PredictionConflict(int(i), c, v) for i, c, v in found]
-    if inserted and not conflicts:
-        buckets = {(v, hour_of(t)) for v, t in zip(batch.version, batch.scored_at, strict=True)}
-        dirty.mark(conn, (BucketKey(model_id, v, h) for v, h in buckets), received_at)
-    return PredictionWrite(inserted, len(batch) - inserted, conflicts)
+    return inserted, conflicts
 
 
 def lock_model_for_outcomes(conn: Connection, model_id: int) -> None:
