@@ -16,7 +16,10 @@ from sqlalchemy import Engine
 
 from calibrant.clock import Clock
 from calibrant.config import Settings
+from calibrant.notify.jobs import deliver_due
+from calibrant.notify.senders import sender_from_settings
 from calibrant.rollup.refresh import refresh_dirty
+from calibrant.store.engine import make_session_factory
 
 
 def worker_name() -> str:
@@ -44,7 +47,16 @@ def _refresh(ctx: JobContext) -> dict[str, Any]:
     return refresh_dirty(ctx.engine, ctx.clock, worker=worker_name()).as_dict()
 
 
-JOBS: tuple[Job, ...] = (Job("refresh", _refresh),)
+def _deliver(ctx: JobContext) -> dict[str, Any]:
+    sender = ctx.webhook_sender or sender_from_settings(
+        ctx.settings.webhook_allow_private, ctx.settings.webhook_sender
+    )
+    return deliver_due(make_session_factory(ctx.engine), ctx.clock, ctx.settings, sender).as_dict()
+
+
+# Order matters within a round: summaries first, then what reads them, delivery last,
+# so one round takes an ingest all the way to a webhook.
+JOBS: tuple[Job, ...] = (Job("refresh", _refresh), Job("deliver_webhooks", _deliver))
 
 
 def run_all(ctx: JobContext, max_rounds: int = 20) -> dict[str, Any]:
