@@ -14,6 +14,7 @@ from typing import Any
 
 from sqlalchemy import Engine
 
+from calibrant.alarms import jobs as alarm_jobs
 from calibrant.clock import Clock
 from calibrant.config import Settings
 from calibrant.notify.jobs import deliver_due
@@ -56,7 +57,11 @@ def _deliver(ctx: JobContext) -> dict[str, Any]:
 
 # Order matters within a round: summaries first, then what reads them, delivery last,
 # so one round takes an ingest all the way to a webhook.
-JOBS: tuple[Job, ...] = (Job("refresh", _refresh), Job("deliver_webhooks", _deliver))
+JOBS: tuple[Job, ...] = (
+    Job("refresh", _refresh),
+    Job("alarms", alarm_jobs.run),
+    Job("deliver_webhooks", _deliver),
+)
 
 
 def run_all(ctx: JobContext, max_rounds: int = 20) -> dict[str, Any]:

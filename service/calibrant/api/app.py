@@ -11,7 +11,7 @@ from sqlalchemy import Engine
 import calibrant
 from calibrant import scheduler
 from calibrant.api import problems
-from calibrant.api.routes import health, ingest, metrics, models, refresh, webhooks
+from calibrant.api.routes import alarms, health, ingest, metrics, models, refresh, rules, webhooks
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import add_body_schemas
 from calibrant.clock import Clock, SystemClock
@@ -75,6 +75,8 @@ def create_app(
     app.include_router(metrics.router)
     app.include_router(refresh.router)
     app.include_router(webhooks.router)
+    app.include_router(rules.router)
+    app.include_router(alarms.router)
 
     def openapi() -> dict:
         if app.openapi_schema is None:

@@ -1,0 +1,1 @@
+"""Alarm rules, sequential calibration charts, window rules, alarm states and backtests."""

@@ -1,0 +1,280 @@
+"""Sequential calibration charts: route mature cases to streams, design limits, advance, detect crossings.
+
+Each enabled chart rule keeps one risk-adjusted Bernoulli CUSUM (``stats.cusum``)
+per (version, segment) stream: "all" plus every declared segment value. A
+stream consumes its mature cases in (maturity time, case id) order behind a
+watermark; an outcome received after its case was passed by the watermark is
+counted as ``skipped_late`` and never fed in out of order. A mature case with
+no label (no implicit negatives) is passed over and counted.
+
+Design (METHODS 7.1): once a stream has ``min_design_cases`` labelled mature
+cases, h is designed by the Markov-chain designer from its recent risks for
+ARL0 = K × (cases per day) × 365.25 / budget, K the number of chart streams
+of the model (``arl0_for_false_alarm_budget``): the model's charts together
+then raise about ``budget`` false alarms a year. The chart starts with the
+cases after the design. The design is redone, keeping S, when the target
+ARL0 (volume, K) moves by more than ``redesign_rate_ratio`` or the mean risk by
+more than ``redesign_mean_change`` (relative), and at every reset.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from datetime import UTC, datetime
+from typing import Any
+
+import numpy as np
+
+from calibrant.alarms.rules import ChartParams
+from calibrant.rollup.compute import SegmentBook
+from calibrant.stats.cusum import CusumState, advance, new_chart
+from calibrant.stats.cusum_design import arl0_for_false_alarm_budget, design_cusum
+from calibrant.store import alarm_repo, rollup_repo
+from calibrant.store.alarm_tables import AlarmRule, ChartStream
+from calibrant.store.rollup_tables import ALL_SEGMENT
+from calibrant.store.tables import Model
+
+DESIGN_STATES = 200  # Markov states; h moves < 0.002 from 400 states (checked on Beta(2,8) risks)
+DESIGN_POINTS = 128  # risk compression bins for the design
+PATH_POINTS = 100  # chart points kept for the evidence
+_DAY = 86400.0
+
+StreamKey = tuple[str, str, str]  # version, segment key, segment value
+
+
+@dataclass
+class Crossing:
+    """A chart crossed h at a case: everything the alarm's evidence needs."""
+
+    rule: AlarmRule
+    stream: ChartStream
+    crossed_at: datetime
+    case_id: str
+    evidence: dict[str, Any]
+
+
+@dataclass
+class ChartReport:
+    cases: int = 0
+    designs: int = 0
+    skipped_late: int = 0
+    crossings: list[Crossing] = field(default_factory=list)
+
+
+# ----------------------------------------------------------------------------- recent risks
+def _unpack(blob: bytes) -> np.ndarray:
+    return np.frombuffer(blob, dtype=np.float64).reshape(2, -1) if blob else np.empty((2, 0))
+
+
+def _pack(risks: np.ndarray, times: np.ndarray, keep: int) -> bytes:
+    return np.ascontiguousarray(np.vstack([risks, times])[:, -keep:]).tobytes()
+
+
+def cases_per_day(times: np.ndarray) -> float:
+    """n / span in days, the span floored at one day (a burst in one hour is not a daily rate)."""
+    span = (float(times.max()) - float(times.min())) / _DAY if times.size else 0.0
+    return times.size / max(span, 1.0)
+
+
+def design_for(recent: np.ndarray, params: ChartParams, n_charts: int, at: datetime) -> dict[str, Any]:
+    """A design dict (``CusumDesign.to_dict`` plus the budget it serves), or one with ``error``."""
+    risks, times = recent
+    rate = cases_per_day(times)
+    target = arl0_for_false_alarm_budget(rate, n_charts, params.false_alarms_per_year)
+    base = {"cases_per_day": rate, "n_charts": n_charts, "budget_per_year": params.false_alarms_per_year,
+            "designed_at": at.isoformat(), "mean_risk": float(risks.mean())}
+    try:
+        design = design_cusum(risks, target, params.odds_ratio, n_states=DESIGN_STATES,
+                              max_points=DESIGN_POINTS)
+    except ValueError as exc:
+        return {**base, "error": str(exc), "target_arl0": target}
+    return {**design.to_dict(), **base}
+
+
+def _material_change(design: dict[str, Any], recent: np.ndarray, params: ChartParams,
+                     n_charts: int) -> bool:
+    risks, times = recent
+    target = arl0_for_false_alarm_budget(cases_per_day(times), n_charts, params.false_alarms_per_year)
+    ratio = target / float(design["target_arl0"])
+    mean_change = abs(float(risks.mean()) / float(design["mean_risk"]) - 1.0)
+    return not (1 / params.redesign_rate_ratio <= ratio <= params.redesign_rate_ratio) or (
+        mean_change > params.redesign_mean_change
+    )
+
+
+# ----------------------------------------------------------------------------- one stream
+def _epoch(times: list[datetime]) -> np.ndarray:
+    return np.array([t.timestamp() for t in times], dtype=np.float64)
+
+
+def _iso(ts: float) -> str:
+    return datetime.fromtimestamp(ts, UTC).isoformat().replace("+00:00", "Z")
+
+
+def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.ndarray, y: np.ndarray,
+         times: np.ndarray, case_ids: list[str], n_charts: int, now: datetime) -> tuple[Crossing | None, int]:
+    """Feed one stream its new labelled mature cases (in order). Returns (crossing, designs made)."""
+    recent = _unpack(stream.recent)
+    designs = 0
+    start = 0
+    if stream.state is None:
+        need = max(params.min_design_cases - recent.shape[1], 0)
+        start = min(need, p.size)
+        recent = np.hstack([recent, np.vstack([p[:start], times[:start]])])[:, -params.design_sample:]
+        if recent.shape[1] >= params.min_design_cases:
+            stream.design = design_for(recent, params, n_charts, now)
+            designs += 1
+            if "error" not in stream.design:
+                stream.state = new_chart(stream.design["h"], params.odds_ratio).to_dict()
+        if stream.state is None:  # still gathering, or the design failed: retried next time
+            stream.recent = _pack(recent[0], recent[1], params.design_sample)
+            return None, designs
+    state = CusumState.from_dict(stream.state)
+    if (not state.signalled and stream.design and "error" not in stream.design
+            and _material_change(stream.design, recent, params, n_charts)):
+        redesign = design_for(recent, params, n_charts, now)
+        designs += 1
+        if "error" not in redesign:
+            stream.design = redesign
+            state = replace(state, h=float(redesign["h"]), s=min(state.s, float(redesign["h"])))
+    cp, cy, ct = p[start:], y[start:], times[start:]
+    step = advance(state, cp, cy, return_path=True)
+    path = list(stream.path or [])
+    crossing = None
+    if step.signal_index is not None:
+        i = step.signal_index
+        lo = max(0, i + 1 - PATH_POINTS)
+        tail = path[-(PATH_POINTS - (i + 1 - lo)):] if i + 1 - lo < PATH_POINTS else []
+        chart_path = tail + [[_iso(ct[j]), float(step.path[j])] for j in range(lo, i + 1)]
+        crossed = datetime.fromtimestamp(ct[i], UTC)
+        crossing = Crossing(rule, stream, crossed, case_ids[start + i], {
+            "statistic": float(step.path[i]),
+            "control_limit": state.h,
+            "interval": None,
+            "n": step.state.signal_case,
+            "odds_ratio": state.r_a,
+            "crossed_at": crossed.isoformat().replace("+00:00", "Z"),
+            "crossing_case": case_ids[start + i],
+            "chart_path": chart_path,
+            "design": stream.design,
+            "skipped_late": stream.skipped_late,
+            "unlabelled_at_maturity": stream.unlabelled_at_maturity,
+            "cases_since_reset": step.state.n_cases,
+        })
+    if step.path is not None and step.path.size:
+        k = min(PATH_POINTS, step.path.size)
+        path = (path + [[_iso(ct[j]), float(step.path[j])] for j in range(cp.size - k, cp.size)])
+    stream.path = path[-PATH_POINTS:]
+    stream.state = step.state.to_dict()
+    recent = np.hstack([recent, np.vstack([cp, ct])])
+    stream.recent = _pack(recent[0], recent[1], params.design_sample)
+    return crossing, designs
+
+
+def restart(stream: ChartStream, params: ChartParams, n_charts: int, now: datetime) -> None:
+    """S back to 0 after a person resolved the alarm; h redesigned for the current risk mix."""
+    recent = _unpack(stream.recent)
+    if recent.shape[1] >= params.min_design_cases:
+        redesign = design_for(recent, params, n_charts, now)
+        if "error" not in redesign:
+            stream.design = redesign
+    h = float(stream.design["h"]) if stream.design and "h" in stream.design else None
+    stream.state = None if h is None else new_chart(h, params.odds_ratio).to_dict()
+    stream.skipped_late = 0
+    stream.unlabelled_at_maturity = 0
+    stream.path = []
+    stream.updated_at = now
+
+
+# ----------------------------------------------------------------------------- a model
+def _segments(tags: dict[str, str], book: SegmentBook) -> list[tuple[str, str]]:
+    out = [(ALL_SEGMENT, ALL_SEGMENT)]
+    for key in book.keys:
+        value = tags.get(key, "")
+        if value:
+            out.append((key, book.resolve(key, value)))
+    return out
+
+
+def count_streams(session: Any, rules: list[tuple[AlarmRule, ChartParams]]) -> int:
+    return sum(len(alarm_repo.streams_of(session, r.id)) for r, _ in rules)
+
+
+def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], now: datetime) -> ChartReport:
+    """Advance every stream of the model's enabled chart rules up to ``now``."""
+    report = ChartReport()
+    if not rules:
+        return report
+    conn = session.connection()
+    book = SegmentBook(list(model.segment_keys or []), rollup_repo.segment_values(conn, model.id))
+    streams: dict[tuple[int, StreamKey], ChartStream] = {
+        (r.id, (s.version, s.segment_key, s.segment_value)): s
+        for r, _ in rules for s in alarm_repo.streams_of(session, r.id)
+    }
+    work: list[tuple[AlarmRule, ChartParams, ChartStream, list[int], tuple[Any, ...]]] = []
+    for version in alarm_repo.versions_of(conn, model.id):
+        mine = [s for (_, k), s in streams.items() if k[0] == version]
+        has_all = all((r.id, (version, ALL_SEGMENT, ALL_SEGMENT)) in streams for r, _ in rules)
+        marks = [s.watermark_at for s in mine]
+        # Read from the oldest watermark of the version's streams; a rule without its
+        # "all" stream yet (new rule, new version) reads the whole history.
+        after = min(marks) if has_all and marks and None not in marks else None  # type: ignore[type-var]
+        cases = alarm_repo.mature_cases(conn, model, version, after=after, now=now)
+        _count_late(session, model, version, streams, book, now)
+        routes: dict[StreamKey, list[int]] = {}
+        for i, tags in enumerate(cases.tags):
+            for seg in _segments(tags, book):
+                routes.setdefault((version, *seg), []).append(i)
+        for key, idx in routes.items():
+            for rule, params in rules:
+                stream = streams.get((rule.id, key))
+                if stream is None:
+                    stream = ChartStream(rule_id=rule.id, version=key[0], segment_key=key[1],
+                                         segment_value=key[2], consumed=0, skipped_late=0,
+                                         unlabelled_at_maturity=0, recent=b"", path=[], updated_at=now)
+                    session.add(stream)
+                    streams[(rule.id, key)] = stream
+                work.append((rule, params, stream, idx, (cases,)))
+    n_charts = len(streams)
+    for rule, params, stream, idx, (cases,) in work:
+        fresh = [i for i in idx if stream.watermark_at is None
+                 or (cases.matured_at[i], cases.case_id[i]) > (stream.watermark_at, stream.watermark_case)]
+        if not fresh:
+            continue
+        labels = cases.label[fresh]
+        keep = [i for i, lab in zip(fresh, labels, strict=True) if lab >= 0]
+        stream.unlabelled_at_maturity += len(fresh) - len(keep)
+        last = fresh[-1]
+        stream.watermark_at, stream.watermark_case = cases.matured_at[last], cases.case_id[last]
+        stream.consumed += len(fresh)
+        stream.updated_at = now
+        report.cases += len(fresh)
+        if not keep:
+            continue
+        crossing, designs = feed(
+            stream, rule, params, p=cases.probability[keep], y=cases.label[keep].astype(np.float64),
+            times=_epoch([cases.matured_at[i] for i in keep]), case_ids=[cases.case_id[i] for i in keep],
+            n_charts=n_charts, now=now)
+        report.designs += designs
+        if crossing is not None:
+            report.crossings.append(crossing)
+    session.flush()
+    return report
+
+
+def _count_late(session: Any, model: Model, version: str,
+                streams: dict[tuple[int, StreamKey], ChartStream], book: SegmentBook, now: datetime) -> None:
+    """Outcomes received since a stream's last run whose case lies at or behind its watermark."""
+    mine = [s for (_, k), s in streams.items() if k[0] == version and s.watermark_at is not None]
+    if not mine:
+        return
+    since = min(s.updated_at for s in mine)
+    late = alarm_repo.outcomes_received_since(session.connection(), model, version, since)
+    for stream in mine:
+        for item in late:
+            if item.received_at > stream.updated_at and (
+                (item.matured_at, item.case_id) <= (stream.watermark_at, stream.watermark_case)
+            ) and (
+                (stream.segment_key, stream.segment_value) in _segments(item.tags, book)
+            ):
+                stream.skipped_late += 1
