@@ -89,26 +89,47 @@ def _recompute(
     if claim is None:
         report.busy += 1
         return False
+    computed = _read_bucket(engine, key, chunk_rows)
+    # No transaction is open here: on SQLite every transaction holds the write lock,
+    # so ingest (and other refreshers) can run between the read and the write.
+    clean = _write_bucket(engine, clock, claim, computed)
+    report.recomputed.append((key, claim.generation))
+    report.rows_read += computed.n_rows
+    if not clean:
+        report.requeued += 1
+    return True
+
+
+@dataclass
+class _Computed:
+    book: SegmentBook
+    summaries: dict
+    n_rows: int
+
+
+def _read_bucket(engine: Engine, key: BucketKey, chunk_rows: int) -> _Computed:
+    """Summaries of every segment of the bucket, from its raw rows (one read transaction)."""
     with engine.begin() as conn:
         keys = conn.execute(select(Model.segment_keys).where(Model.id == key.model_id)).scalar()
         book = SegmentBook(list(keys or []), rollup_repo.segment_values(conn, key.model_id))
         summaries, n_rows = summarise_bucket(rollup_repo.bucket_rows(conn, key, chunk_rows), book)
+    return _Computed(book, summaries, n_rows)
+
+
+def _write_bucket(engine: Engine, clock: Clock, claim: dirty.Claim, computed: _Computed) -> bool:
+    """Store the summaries and clear the mark if its generation is unchanged; True when clean."""
     now = clock.now()
+    key = claim.key
     with engine.begin() as conn:
-        for seg_key, values in book.admitted.items():
+        for seg_key, values in computed.book.admitted.items():
             rollup_repo.add_segment_values(conn, key.model_id, seg_key, values, now)
         rollup_repo.replace_summaries(
             conn,
             key,
-            {seg: (_rows_in(s), s.to_bytes()) for seg, s in summaries.items()},
+            {seg: (_rows_in(s), s.to_bytes()) for seg, s in computed.summaries.items()},
             now,
         )
-        clean = dirty.finish(conn, claim)
-    report.recomputed.append((key, claim.generation))
-    report.rows_read += n_rows
-    if not clean:
-        report.requeued += 1
-    return True
+        return dirty.finish(conn, claim)
 
 
 def _rows_in(summary) -> int:
