@@ -278,3 +278,4 @@ def _count_late(session: Any, model: Model, version: str,
                 (stream.segment_key, stream.segment_value) in _segments(item.tags, book)
             ):
                 stream.skipped_late += 1
+        stream.updated_at = now  # counted up to now: the next run looks only at later arrivals
