@@ -52,7 +52,10 @@ NO_REFERENCE = (
 
 
 def maturity_boundary(model: Model, now: datetime) -> datetime | None:
-    """Buckets whose hour starts before the boundary are mature; None: all are."""
+    """Buckets whose hour starts at or before the boundary are mature; None: all are.
+
+    end + H + L ≤ now  ⇔  hour ≤ now − H − L − 1 h (the equality is mature, DESIGN 3).
+    """
     if model.outcome_horizon_days is None:
         return None
     delay = timedelta(days=model.outcome_horizon_days + (model.outcome_lag_days or 0))
@@ -88,7 +91,7 @@ def load_days(
         conn, model.id, start, end, segment=segment, version=version
     ):
         day = row.hour.replace(hour=0)
-        target = mature if boundary is None or row.hour < boundary else immature
+        target = mature if boundary is None or row.hour <= boundary else immature
         target[day].append(Summary.from_bytes(row.payload))
     return DaySlices(
         {d: Summary.merge_many(s) for d, s in mature.items()},
