@@ -161,13 +161,13 @@ def reliability(
     model = require(session, model_name)
     if strategy not in {"uniform", "quantile"}:
         raise invalid("strategy", "must be uniform or quantile")
+    if not 1 <= bins <= 50:  # before the divisibility test: bins=0 would divide by zero
+        raise invalid("bins", "must be between 1 and 50")
     if strategy == "uniform" and 20 % bins:
         raise InvalidInput(
             "uniform bins must divide 20 so they are exact unions of the stored fine bins",
             [FieldError(None, "bins", "with strategy=uniform use 1, 2, 4, 5, 10 or 20")],
         )
-    if not 1 <= bins <= 50:
-        raise invalid("bins", "must be between 1 and 50")
     sel = _selection(model, start, end, version, tag)
     boundary = query.maturity_boundary(model, now)
     days = query.load_days(
