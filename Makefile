@@ -32,6 +32,8 @@ lint: $(STAMP)
 bench: $(STAMP)
 	$(BIN)/python tests/bench/ingest.py
 	$(BIN)/python tests/bench/stats.py
+	$(BIN)/python tests/bench/cusum.py
+	$(BIN)/python tests/bench/query.py
 
 clean:
 	rm -rf $(VENV) var .pytest_cache
