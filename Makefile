@@ -5,7 +5,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 export CALIBRANT_DATABASE_URL ?= sqlite:///./var/calibrant.db
 
-.PHONY: run test lint bench venv migrate clean
+.PHONY: run test lint bench venv migrate clean demo
 
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -23,11 +23,15 @@ run: migrate
 	$(BIN)/calibrant serve --host 127.0.0.1 --port 8000
 
 test: $(STAMP)
-	$(BIN)/ruff check service tests migrations
+	$(BIN)/ruff check service tests migrations demo
 	$(BIN)/python -m pytest
 
 lint: $(STAMP)
-	$(BIN)/ruff check service tests migrations
+	$(BIN)/ruff check service tests migrations demo
+
+# The whole loop in under a minute: an invented courier's six months through a fresh var/demo/.
+demo: $(STAMP)
+	$(BIN)/python -m demo --workdir var/demo
 
 bench: $(STAMP)
 	$(BIN)/python tests/bench/ingest.py
