@@ -20,11 +20,12 @@ more than ``redesign_mean_change`` (relative), and at every reset.
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
-from datetime import UTC, datetime
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import numpy as np
 
+from calibrant.alarms import corrections
 from calibrant.alarms.rules import ChartParams
 from calibrant.rollup.compute import SegmentBook
 from calibrant.stats.cusum import CusumState, advance, new_chart
@@ -211,6 +212,8 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
         (r.id, (s.version, s.segment_key, s.segment_value)): s
         for r, _ in rules for s in alarm_repo.streams_of(session, r.id)
     }
+    previous_run = {key: s.updated_at for key, s in streams.items()}  # before _count_late moves it
+    lag = timedelta(days=model.outcome_lag_days or 0)
     work: list[tuple[AlarmRule, ChartParams, ChartStream, list[int], tuple[Any, ...]]] = []
     for version in alarm_repo.versions_of(conn, model.id):
         mine = [s for (_, k), s in streams.items() if k[0] == version]
@@ -219,7 +222,9 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
         # Read from the oldest watermark of the version's streams; a rule without its
         # "all" stream yet (new rule, new version) reads the whole history.
         after = min(marks) if has_all and marks and None not in marks else None  # type: ignore[type-var]
-        cases = alarm_repo.mature_cases(conn, model, version, after=after, now=now)
+        fixes = corrections.corrected_cases(conn, model, version, after=after)
+        view = corrections.reorder(alarm_repo.mature_cases(conn, model, version, after=after, now=now), fixes)
+        cases = view.cases
         _count_late(session, model, version, streams, book, now)
         routes: dict[StreamKey, list[int]] = {}
         for i, tags in enumerate(cases.tags):
@@ -234,11 +239,16 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
                                          unlabelled_at_maturity=0, recent=b"", path=[], updated_at=now)
                     session.add(stream)
                     streams[(rule.id, key)] = stream
-                work.append((rule, params, stream, idx, (cases,)))
+                work.append((rule, params, stream, idx, (view, fixes, previous_run.get((rule.id, key)))))
     n_charts = len(streams)
-    for rule, params, stream, idx, (cases,) in work:
+    for rule, params, stream, idx, (view, fixes, last_run) in work:
+        cases = view.cases
         fresh = [i for i in idx if stream.watermark_at is None
                  or (cases.matured_at[i], cases.case_id[i]) > (stream.watermark_at, stream.watermark_case)]
+        if fixes and stream.watermark_at is not None and last_run is not None:
+            stream.skipped_late += corrections.passed_corrections(
+                view, fixes, idx, watermark=(stream.watermark_at, stream.watermark_case),
+                previous_run=last_run, lag=lag)
         if not fresh:
             continue
         labels = cases.label[fresh]

@@ -1,0 +1,87 @@
+"""A label corrected after a chart consumed its case is never fed to the chart again.
+
+Without an outcome horizon a case is mature once both its score and its
+outcome are known, so a correction carrying a later ``observed_at`` would put
+the case *ahead* of the stream's watermark a second time. The chart's
+processing order is defined once per case (METHODS 7: order of maturity,
+reproducible), so the correction must be treated like any outcome that
+arrives behind the watermark: counted as skipped-late, not consumed twice.
+With a horizon the case's maturity never depends on its label, which the
+second test pins as the reference behaviour.
+"""
+
+from __future__ import annotations
+
+from datetime import timedelta
+
+import numpy as np
+from fastapi.testclient import TestClient
+
+from calibrant.clock import FixedClock
+from tests.alarms.streams import T0, iso, make_day, post_day, refresh, setup_model
+from tests.conftest import Database, make_client
+
+CHARTS = ("calibration-chart-upper",)
+SMALL_DESIGN = {"min_design_cases": 400, "design_sample": 800}
+CORRECTED = (3, 17, 41)  # cases of day 0 whose label is flipped after the chart consumed them
+
+
+def _stream(client: TestClient, model: str) -> dict:
+    rule = client.get(f"/v1/models/{model}/rules/calibration-chart-upper").json()
+    return next(s for s in rule["streams"] if s["segment"] is None)
+
+
+def _correct(client: TestClient, model: str, d, observed_after: timedelta) -> None:
+    items = [{"id": d.ids[i], "label": 1 - int(d.y[i]), "observed_at": iso(d.scored_at[i] + observed_after)}
+             for i in CORRECTED]
+    r = client.post(f"/v1/models/{model}/outcomes", json={"outcomes": items})
+    assert r.status_code == 200, r.text
+    assert r.json()["corrected"] == len(CORRECTED)
+
+
+def _consume_then_correct(db: Database, **settings) -> tuple[TestClient, FixedClock, int]:
+    clock = FixedClock(T0)
+    client = make_client(db, clock=clock)
+    setup_model(client, "fix", keep=CHARTS, chart_params=SMALL_DESIGN, **settings)
+    d = make_day(np.random.default_rng(21), 0, 80)
+    post_day(client, "fix", d)  # outcomes observed 6 h after scoring
+    clock.set(T0 + timedelta(days=2, hours=1))
+    refresh(client)
+    assert _stream(client, "fix")["consumed"] == len(d.ids)
+    # Corrections observed two days later: past the watermark of the first run.
+    clock.set(T0 + timedelta(days=3))
+    _correct(client, "fix", d, observed_after=timedelta(days=2, hours=12))
+    clock.set(T0 + timedelta(days=4))
+    refresh(client)
+    refresh(client)  # a second run must change nothing either
+    return client, clock, len(d.ids)
+
+
+def test_corrected_label_without_horizon_is_not_consumed_twice(db: Database) -> None:
+    client, _, n = _consume_then_correct(db, outcome_horizon_days=None)
+    stream = _stream(client, "fix")
+    assert stream["consumed"] == n  # each case fed once
+    assert stream["skipped_late"] == len(CORRECTED)  # the corrections, counted once each
+
+
+def test_corrected_label_with_horizon_is_counted_late(db: Database) -> None:
+    client, _, n = _consume_then_correct(db, outcome_horizon_days=1)
+    stream = _stream(client, "fix")
+    assert stream["consumed"] == n
+    assert stream["skipped_late"] == len(CORRECTED)
+
+
+def test_label_corrected_before_the_chart_saw_it_is_fed_once(db: Database) -> None:
+    clock = FixedClock(T0)
+    client = make_client(db, clock=clock)
+    setup_model(client, "early", keep=CHARTS, chart_params=SMALL_DESIGN, outcome_horizon_days=None)
+    d = make_day(np.random.default_rng(22), 0, 80)
+    post_day(client, "early", d)
+    clock.set(T0 + timedelta(days=3))
+    _correct(client, "early", d, observed_after=timedelta(days=2, hours=12))
+    clock.set(T0 + timedelta(days=4))
+    refresh(client)
+    refresh(client)
+    stream = _stream(client, "early")
+    assert stream["consumed"] == len(d.ids)
+    assert stream["skipped_late"] == 0
