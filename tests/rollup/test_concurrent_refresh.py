@@ -1,4 +1,4 @@
-"""Two refreshers on one database, forced to overlap: each (bucket, generation) runs once.
+"""Two refreshers on one database, forced to overlap: each (bucket or day, generation) runs once.
 
 Each thread stands for a scheduler process: its own engine on the same URL,
 its own worker name. A start barrier releases them together; a second barrier
@@ -23,7 +23,7 @@ from calibrant.stats.summary import Summary
 from calibrant.store import dirty
 from calibrant.store.dirty import BucketKey
 from calibrant.store.engine import make_engine
-from calibrant.store.rollup_tables import BucketSummary, DirtyBucket
+from calibrant.store.rollup_tables import BucketSummary, DaySummary, DirtyBucket
 from tests.conftest import Database, make_client
 from tests.rollup.synthetic import make_traffic, post_all
 
@@ -38,10 +38,10 @@ def dirty_units(db: Database) -> set[tuple[BucketKey, int]]:
         return {(BucketKey(m, v, h), g) for m, v, h, g in rows}
 
 
-def stored_summaries(db: Database) -> dict[tuple, Summary]:
+def stored_summaries(db: Database, t: type = BucketSummary) -> dict[tuple, Summary]:
     with db.engine.connect() as conn:
-        t = BucketSummary
-        columns = (t.model_id, t.version, t.segment_key, t.segment_value, t.hour, t.payload)
+        when = t.hour if t is BucketSummary else t.day
+        columns = (t.model_id, t.version, t.segment_key, t.segment_value, when, t.payload)
         rows = conn.execute(sa.select(*columns))
         return {tuple(r[:5]): Summary.from_bytes(bytes(r[5])) for r in rows}
 
@@ -106,17 +106,25 @@ def test_two_overlapping_refreshers_run_every_unit_exactly_once(
     assert not set(by_worker["north"]) & set(by_worker["south"])
     assert reports["north"].requeued == reports["south"].requeued == 0
     assert dirty_units(db) == set()
+    # days: every (day, generation) merged by exactly one of the two, and none left dirty
+    merged_days = Counter(reports["north"].merged_days + reports["south"].merged_days)
+    assert merged_days
+    assert set(merged_days.values()) == {1}
+    assert db.scalar("SELECT COUNT(*) FROM dirty_days") == 0
 
     # the same summaries a single runner builds
     concurrent = stored_summaries(db)
+    concurrent_days = stored_summaries(db, DaySummary)
     monkeypatch.setattr(refresh_module, "_write_bucket", real_write)
     with db.engine.begin() as conn:
         dirty.mark(conn, (k for k, _ in units), NOW)
     single = refresh_module.refresh_dirty(db.engine, clock, worker="alone")
     assert len(single.recomputed) == len(units)
     alone = stored_summaries(db)
-    assert concurrent.keys() == alone.keys()
-    for key, summary in alone.items():
-        other = concurrent[key]
-        assert np.array_equal(summary.cells, other.cells), key
-        np.testing.assert_allclose(other.fields, summary.fields, rtol=1e-12, atol=1e-12)
+    alone_days = stored_summaries(db, DaySummary)
+    for mine, theirs in ((alone, concurrent), (alone_days, concurrent_days)):
+        assert mine.keys() == theirs.keys()
+        for key, summary in mine.items():
+            other = theirs[key]
+            assert np.array_equal(summary.cells, other.cells), key
+            np.testing.assert_allclose(other.fields, summary.fields, rtol=1e-12, atol=1e-12)

@@ -18,6 +18,7 @@ from sqlalchemy.orm import Session
 from calibrant.clock import Clock
 from calibrant.errors import FieldError, InvalidInput
 from calibrant.models.service import require
+from calibrant.rollup.query import load_days
 from calibrant.stats.summary import Summary
 from calibrant.store import audit, rollup_repo
 from calibrant.store.rollup_tables import ALL_SEGMENT
@@ -32,15 +33,16 @@ def reference_summary(conn: Connection, model: Any) -> Summary | None:
     if ref.get("kind") == "uploaded":
         payload = rollup_repo.reference_sample(conn, model.id)
         return None if payload is None else Summary.from_bytes(payload)
-    rows = rollup_repo.summaries_between(
+    days = load_days(
         conn,
-        model.id,
+        model,
         datetime.fromisoformat(ref["start"]),
         datetime.fromisoformat(ref["end"]),
         segment=(ALL_SEGMENT, ALL_SEGMENT),
         version=ref.get("version"),
+        boundary=None,  # every prediction of the range, labelled or not: drift needs no label
     )
-    merged = Summary.merge_many([Summary.from_bytes(r.payload) for r in rows])
+    merged = Summary.merge_many(list(days.mature.values()))
     return None if merged.is_empty() else merged
 
 

@@ -1,4 +1,4 @@
-"""The refresh job: recompute dirty buckets until none is left.
+"""The refresh job: recompute dirty buckets, then merge their dirty days, until none is left.
 
 Safe with any number of processes: a bucket is claimed with a lease in the
 database before it is recomputed, summaries are replaced in one transaction
@@ -6,10 +6,17 @@ with the clearing of the mark, and the mark is cleared only if its generation
 is still the one claimed (``store.dirty``). Two runners therefore never
 recompute the same (bucket, generation), and rows ingested during a refresh
 leave the bucket dirty for the next pass.
+
+Storing an hour's summaries marks its day dirty in the same transaction; the
+day pass merges the day's stored hours into day summaries under the same
+claim protocol once none of its hours is dirty, so a day rebuilt while one of
+its hours is rewritten stays dirty and is merged again. Until then queries read
+the hours of a dirty day (``rollup.query.load_days``).
 """
 
 from __future__ import annotations
 
+from collections import defaultdict
 from dataclasses import dataclass, field
 from datetime import timedelta
 
@@ -17,8 +24,9 @@ from sqlalchemy import Engine, select
 
 from calibrant.clock import Clock
 from calibrant.rollup.compute import SegmentBook, summarise_bucket
+from calibrant.stats.summary import Summary
 from calibrant.store import dirty, rollup_repo
-from calibrant.store.dirty import BucketKey
+from calibrant.store.dirty import BucketKey, DayKey, day_of
 from calibrant.store.tables import Model
 
 JOB_NAME = "refresh"
@@ -30,9 +38,11 @@ class RefreshReport:
 
     worker: str
     recomputed: list[tuple[BucketKey, int]] = field(default_factory=list)
+    merged_days: list[tuple[DayKey, int]] = field(default_factory=list)
     rows_read: int = 0
     requeued: int = 0  # recomputed, but rows arrived meanwhile: dirty again
     busy: int = 0  # held by another worker
+    days_requeued: int = 0  # merged, but one of its hours was stored meanwhile: dirty again
 
     @property
     def buckets(self) -> int:
@@ -41,6 +51,7 @@ class RefreshReport:
     def as_dict(self) -> dict[str, int]:
         return {
             "buckets": self.buckets,
+            "days": len(self.merged_days),
             "rows_read": self.rows_read,
             "requeued": self.requeued,
             "busy": self.busy,
@@ -57,7 +68,7 @@ def refresh_dirty(
     lease: timedelta = timedelta(minutes=10),
     max_passes: int = 1000,
 ) -> RefreshReport:
-    """Recompute dirty buckets until a pass finds nothing it can claim."""
+    """Recompute dirty buckets and merge dirty days until a pass finds nothing it can claim."""
     report = RefreshReport(worker)
     started = clock.now()
     for _ in range(max_passes):
@@ -66,6 +77,12 @@ def refresh_dirty(
         progressed = False
         for key in keys:
             progressed |= _recompute(engine, clock, key, worker, chunk_rows, lease, report)
+        with engine.begin() as conn:
+            # A day is merged once its hours are current, so a full refresh merges it once.
+            days = [d for d in dirty.candidates(conn, clock.now(), batch, dirty.DAYS)
+                    if not dirty.hours_pending(conn, d)]
+        for day in days:
+            progressed |= _merge_day(engine, clock, day, worker, lease, report)
         if not progressed:
             break
     with engine.begin() as conn:
@@ -129,7 +146,35 @@ def _write_bucket(engine: Engine, clock: Clock, claim: dirty.Claim, computed: _C
             {seg: (_rows_in(s), s.to_bytes()) for seg, s in computed.summaries.items()},
             now,
         )
-        return dirty.finish(conn, claim)
+        clean = dirty.finish(conn, claim)
+        # Last, so that this transaction's locks are taken in the order bucket, then day.
+        dirty.mark(conn, [DayKey(key.model_id, key.version, day_of(key.hour))], now)
+        return clean
+
+
+def _merge_day(
+    engine: Engine, clock: Clock, key: DayKey, worker: str, lease: timedelta, report: RefreshReport
+) -> bool:
+    """Day summaries = the merge of the day's stored hourly summaries, per segment."""
+    with engine.begin() as conn:
+        claim = dirty.claim(conn, key, worker, clock.now(), lease)
+    if claim is None:
+        report.busy += 1
+        return False
+    with engine.begin() as conn:
+        stored = rollup_repo.hours_of_day(conn, key)
+    by_segment: dict[tuple[str, str], list[Summary]] = defaultdict(list)
+    for seg_key, seg_value, payload in stored:
+        by_segment[(seg_key, seg_value)].append(Summary.from_bytes(payload))
+    merged = {seg: Summary.merge_many(parts) for seg, parts in by_segment.items()}
+    with engine.begin() as conn:
+        rollup_repo.replace_summaries(
+            conn, key, {seg: (_rows_in(s), s.to_bytes()) for seg, s in merged.items()}, clock.now()
+        )
+        if not dirty.finish(conn, claim):
+            report.days_requeued += 1
+    report.merged_days.append((key, claim.generation))
+    return True
 
 
 def _rows_in(summary) -> int:

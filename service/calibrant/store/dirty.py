@@ -1,7 +1,10 @@
-"""Dirty marks on buckets: set by ingest, claimed and cleared by the refresh.
+"""Dirty marks, set when data changes, claimed and cleared by the refresh.
 
-Every statement that touches ``dirty_buckets`` lives here, so the protocol
-(mark → claim → recompute → clear-if-generation-unchanged) reads in one place.
+Two tiers use the same protocol (mark → claim → recompute → clear if the
+generation is unchanged): hourly buckets, marked by ingest and rebuilt from raw
+rows, and days, marked when one of their hours is stored and rebuilt by merging
+those hours. Every statement on ``dirty_buckets`` and ``dirty_days`` lives here,
+so the protocol reads in one place; the key type says which table a call means.
 """
 
 from __future__ import annotations
@@ -10,18 +13,21 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 
-from sqlalchemy import Connection, and_, delete, func, or_, select, update
+from sqlalchemy import Connection, Table, and_, delete, func, or_, select, update
 from sqlalchemy.dialects.postgresql import insert as postgresql_insert
 from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 
-from calibrant.store.rollup_tables import ALL_SEGMENT, BucketSummary, DirtyBucket
+from calibrant.store.rollup_tables import ALL_SEGMENT, BucketSummary, DirtyBucket, DirtyDay
 
 _INSERT = {"postgresql": postgresql_insert, "sqlite": sqlite_insert}
-_T = DirtyBucket.__table__
 
 
 def hour_of(instant: datetime) -> datetime:
     return instant.replace(minute=0, second=0, microsecond=0)
+
+
+def day_of(instant: datetime) -> datetime:
+    return instant.replace(hour=0, minute=0, second=0, microsecond=0)
 
 
 @dataclass(frozen=True, slots=True, order=True)
@@ -30,30 +36,69 @@ class BucketKey:
     version: str
     hour: datetime
 
+    @property
+    def start(self) -> datetime:
+        return self.hour
+
+
+@dataclass(frozen=True, slots=True, order=True)
+class DayKey:
+    model_id: int
+    version: str
+    day: datetime
+
+    @property
+    def start(self) -> datetime:
+        return self.day
+
+
+Key = BucketKey | DayKey
+
+
+@dataclass(frozen=True, slots=True)
+class Tier:
+    """Where the marks of one key type live."""
+
+    table: Table
+    time_column: str
+    key_type: type
+
+
+HOURS = Tier(DirtyBucket.__table__, "hour", BucketKey)
+DAYS = Tier(DirtyDay.__table__, "day", DayKey)
+
+
+def _tier(key: Key) -> Tier:
+    return DAYS if isinstance(key, DayKey) else HOURS
+
 
 @dataclass(frozen=True, slots=True)
 class Claim:
-    key: BucketKey
+    key: Key
     generation: int
     worker: str
 
 
-def mark(conn: Connection, keys: Iterable[BucketKey], now: datetime) -> int:
-    """Mark buckets dirty, bumping the generation of ones already marked.
+def mark(conn: Connection, keys: Iterable[Key], now: datetime) -> int:
+    """Mark buckets (or days) dirty, bumping the generation of ones already marked.
 
-    Keys are written in sorted order so that concurrent ingests touching the
-    same buckets take their row locks in the same order (no deadlock).
+    Keys are written in sorted order so that concurrent writers touching the
+    same marks take their row locks in the same order (no deadlock).
     """
-    rows = [
-        {"model_id": k.model_id, "version": k.version, "hour": k.hour, "generation": 1, "marked_at": now}
-        for k in sorted(set(keys))
-    ]
-    if not rows:
+    ordered = sorted(set(keys))
+    if not ordered:
         return 0
-    stmt = _INSERT[conn.dialect.name](_T)
+    tier = _tier(ordered[0])
+    rows = [
+        {"model_id": k.model_id, "version": k.version, tier.time_column: k.start, "generation": 1,
+         "marked_at": now}
+        for k in ordered
+    ]
+    t = tier.table
+    stmt = _INSERT[conn.dialect.name](t)
     stmt = stmt.on_conflict_do_update(
-        index_elements=["model_id", "version", "hour"],
-        set_={"generation": _T.c.generation + 1, "marked_at": stmt.excluded.marked_at},
+        index_elements=["model_id", "version", tier.time_column],
+        set_={"generation": t.c.generation + 1, "marked_at": stmt.excluded.marked_at},
     )
     conn.execute(stmt, rows)
     return len(rows)
@@ -69,22 +114,27 @@ def mark_whole_model(conn: Connection, model_id: int, now: datetime) -> int:
     return mark(conn, (BucketKey(model_id, v, h) for v, h in keys), now)
 
 
-def candidates(conn: Connection, now: datetime, limit: int) -> list[BucketKey]:
-    """Unclaimed (or lease-expired) dirty buckets, oldest hour first."""
+def candidates(conn: Connection, now: datetime, limit: int, tier: Tier = HOURS) -> list[Key]:
+    """Unclaimed (or lease-expired) marks of ``tier``, oldest first."""
+    t = tier.table
+    when = t.c[tier.time_column]
     rows = conn.execute(
-        select(_T.c.model_id, _T.c.version, _T.c.hour)
-        .where(or_(_T.c.claimed_until.is_(None), _T.c.claimed_until < now))
-        .order_by(_T.c.hour, _T.c.model_id, _T.c.version)
+        select(t.c.model_id, t.c.version, when)
+        .where(or_(t.c.claimed_until.is_(None), t.c.claimed_until < now))
+        .order_by(when, t.c.model_id, t.c.version)
         .limit(limit)
     )
-    return [BucketKey(m, v, h) for m, v, h in rows]
+    return [tier.key_type(m, v, h) for m, v, h in rows]
 
 
-def _key_clause(key: BucketKey):
-    return and_(_T.c.model_id == key.model_id, _T.c.version == key.version, _T.c.hour == key.hour)
+def _key_clause(key: Key):
+    tier = _tier(key)
+    t = tier.table
+    return and_(t.c.model_id == key.model_id, t.c.version == key.version,
+                t.c[tier.time_column] == key.start)
 
 
-def claim(conn: Connection, key: BucketKey, worker: str, now: datetime, lease: timedelta) -> Claim | None:
+def claim(conn: Connection, key: Key, worker: str, now: datetime, lease: timedelta) -> Claim | None:
     """Take the bucket for ``worker`` unless another worker holds a live lease.
 
     One conditional UPDATE: on PostgreSQL a concurrent claimer blocks on the row
@@ -92,14 +142,15 @@ def claim(conn: Connection, key: BucketKey, worker: str, now: datetime, lease: t
     generation returned is what the recomputation answers for: a later ingest bumps
     it and so keeps the mark.
     """
+    t = _tier(key).table
     result = conn.execute(
-        update(_T)
+        update(t)
         .where(
             _key_clause(key),
-            or_(_T.c.claimed_until.is_(None), _T.c.claimed_until < now),
+            or_(t.c.claimed_until.is_(None), t.c.claimed_until < now),
         )
         .values(claimed_by=worker, claimed_until=now + lease)
-        .returning(_T.c.generation)
+        .returning(t.c.generation)
     )
     row = result.first()
     return None if row is None else Claim(key, int(row[0]), worker)
@@ -108,25 +159,48 @@ def claim(conn: Connection, key: BucketKey, worker: str, now: datetime, lease: t
 def finish(conn: Connection, claim_: Claim) -> bool:
     """Clear the mark if its generation is unchanged; else release it for another pass.
 
-    Returns True when the bucket is clean.
+    Returns True when the bucket (or day) is clean.
     """
+    t = _tier(claim_.key).table
     cleared = conn.execute(
-        delete(_T).where(
+        delete(t).where(
             _key_clause(claim_.key),
-            _T.c.generation == claim_.generation,
-            _T.c.claimed_by == claim_.worker,
+            t.c.generation == claim_.generation,
+            t.c.claimed_by == claim_.worker,
         )
     ).rowcount
     if cleared:
         return True
     conn.execute(
-        update(_T)
-        .where(_key_clause(claim_.key), _T.c.claimed_by == claim_.worker)
+        update(t)
+        .where(_key_clause(claim_.key), t.c.claimed_by == claim_.worker)
         .values(claimed_by=None, claimed_until=None)
     )
     return False
 
 
-def backlog(conn: Connection) -> int:
-    """How many buckets wait for a refresh."""
-    return int(conn.execute(select(func.count()).select_from(_T)).scalar() or 0)
+def backlog(conn: Connection, tier: Tier = HOURS) -> int:
+    """How many marks of ``tier`` wait for a refresh."""
+    return int(conn.execute(select(func.count()).select_from(tier.table)).scalar() or 0)
+
+
+def hours_pending(conn: Connection, day: DayKey) -> bool:
+    """Whether some hour of the day still waits for its recomputation (merge the day after it)."""
+    t = HOURS.table
+    return conn.execute(
+        select(t.c.hour).where(
+            t.c.model_id == day.model_id,
+            t.c.version == day.version,
+            t.c.hour >= day.day,
+            t.c.hour < day.day + timedelta(days=1),
+        ).limit(1)
+    ).first() is not None
+
+
+def dirty_days(conn: Connection, model_id: int, start: datetime, end: datetime) -> set[datetime]:
+    """Days in [start, end) with a mark for any version: their day summaries may be stale."""
+    t = DAYS.table
+    rows = conn.execute(
+        select(t.c.day).where(t.c.model_id == model_id, t.c.day >= start, t.c.day < end).distinct()
+    )
+    return {d for (d,) in rows}

@@ -1,4 +1,5 @@
-"""All SQL of the rollup: raw rows of a bucket, summaries in and out, segment values, job runs."""
+"""All SQL of the rollup: raw rows of a bucket, summaries in and out (hourly and daily tiers),
+segment values, job runs."""
 
 from __future__ import annotations
 
@@ -11,11 +12,20 @@ from sqlalchemy import Connection, delete, func, insert, select
 from sqlalchemy.dialects.postgresql import insert as postgresql_insert
 from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 
-from calibrant.store.dirty import BucketKey
-from calibrant.store.rollup_tables import BucketSummary, JobRun, ReferenceSample, SegmentValue
+from calibrant.store.dirty import BucketKey, DayKey, Key
+from calibrant.store.rollup_tables import (
+    BucketSummary,
+    DaySummary,
+    JobRun,
+    ReferenceSample,
+    SegmentValue,
+)
 from calibrant.store.tables import Outcome, Prediction
 
 HOUR = timedelta(hours=1)
+DAY = timedelta(days=1)
+# Summary table and its time column, per key type.
+_TIER_TABLE: dict[type, tuple[type, str]] = {BucketKey: (BucketSummary, "hour"), DayKey: (DaySummary, "day")}
 _INSERT = {"postgresql": postgresql_insert, "sqlite": sqlite_insert}
 
 
@@ -53,26 +63,27 @@ def bucket_rows(conn: Connection, key: BucketKey, chunk_rows: int) -> Iterator[R
 
 
 def replace_summaries(
-    conn: Connection, key: BucketKey, summaries: dict[tuple[str, str], tuple[int, bytes]], now: datetime
+    conn: Connection, key: Key, summaries: dict[tuple[str, str], tuple[int, bytes]], now: datetime
 ) -> None:
-    """Make the bucket's stored summaries exactly ``summaries`` (segments that vanished go)."""
+    """Make the bucket's (or day's) stored summaries exactly ``summaries`` (vanished segments go)."""
+    table, column = _TIER_TABLE[type(key)]
     conn.execute(
-        delete(BucketSummary).where(
-            BucketSummary.model_id == key.model_id,
-            BucketSummary.version == key.version,
-            BucketSummary.hour == key.hour,
+        delete(table).where(
+            table.model_id == key.model_id,
+            table.version == key.version,
+            getattr(table, column) == key.start,
         )
     )
     if summaries:
         conn.execute(
-            insert(BucketSummary),
+            insert(table),
             [
                 {
                     "model_id": key.model_id,
                     "version": key.version,
                     "segment_key": seg_key,
                     "segment_value": seg_value,
-                    "hour": key.hour,
+                    column: key.start,
                     "n": n,
                     "payload": payload,
                     "computed_at": now,
@@ -108,7 +119,7 @@ def add_segment_values(conn: Connection, model_id: int, key: str, values: list[s
 
 @dataclass(frozen=True, slots=True)
 class StoredSummary:
-    hour: datetime
+    start: datetime  # the hour, or the day, the summary covers
     version: str
     payload: bytes
 
@@ -121,18 +132,34 @@ def summaries_between(
     *,
     segment: tuple[str, str],
     version: str | None,
+    daily: bool = False,
 ) -> list[StoredSummary]:
-    """Hourly summaries with start <= hour < end, of one version or all."""
-    query = select(BucketSummary.hour, BucketSummary.version, BucketSummary.payload).where(
-        BucketSummary.model_id == model_id,
-        BucketSummary.segment_key == segment[0],
-        BucketSummary.segment_value == segment[1],
-        BucketSummary.hour >= start,
-        BucketSummary.hour < end,
+    """Hourly (or, with ``daily``, day) summaries starting in [start, end), of one version or all."""
+    table, column = _TIER_TABLE[DayKey if daily else BucketKey]
+    when = getattr(table, column)
+    query = select(when, table.version, table.payload).where(
+        table.model_id == model_id,
+        table.segment_key == segment[0],
+        table.segment_value == segment[1],
+        when >= start,
+        when < end,
     )
     if version is not None:
-        query = query.where(BucketSummary.version == version)
-    return [StoredSummary(h, v, bytes(p)) for h, v, p in conn.execute(query.order_by(BucketSummary.hour))]
+        query = query.where(table.version == version)
+    return [StoredSummary(h, v, bytes(p)) for h, v, p in conn.execute(query.order_by(when))]
+
+
+def hours_of_day(conn: Connection, key: DayKey) -> list[tuple[str, str, bytes]]:
+    """Every segment's hourly summaries of one (model, version, day): (key, value, payload)."""
+    rows = conn.execute(
+        select(BucketSummary.segment_key, BucketSummary.segment_value, BucketSummary.payload).where(
+            BucketSummary.model_id == key.model_id,
+            BucketSummary.version == key.version,
+            BucketSummary.hour >= key.day,
+            BucketSummary.hour < key.day + DAY,
+        )
+    )
+    return [(k, v, bytes(p)) for k, v, p in rows]
 
 
 def reference_sample(conn: Connection, model_id: int) -> bytes | None:

@@ -1,10 +1,15 @@
-"""Tables of the rollup: hourly summaries, their dirty marks, segment values, references.
+"""Tables of the rollup: hourly and daily summaries, their dirty marks, segment values, references.
 
 A bucket is (model, version, hour of scored_at). Ingest marks a bucket dirty
 with a generation number; the refresh claims it, recomputes every segment's
 summary of that hour from raw rows, and removes the mark only if the
 generation is still the one it read — so rows ingested during a refresh are
 never lost, only recomputed once more.
+
+The daily tier works the same way one level up: storing an hour's summaries
+marks its UTC day dirty in the same transaction, and the refresh then merges
+the day's stored hours into one summary per segment. Long-range queries read
+days instead of 24 times as many hours.
 """
 
 from __future__ import annotations
@@ -47,6 +52,37 @@ class DirtyBucket(Base):
     model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
     version: Mapped[str] = mapped_column(String(64), primary_key=True)
     hour: Mapped[datetime] = mapped_column(primary_key=True)
+    generation: Mapped[int] = mapped_column(Integer, default=1)
+    marked_at: Mapped[datetime]
+    claimed_by: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    claimed_until: Mapped[datetime | None] = mapped_column(nullable=True)
+
+
+class DaySummary(Base):
+    """The merge of one UTC day's hourly summaries of a segment (same bytes format)."""
+
+    __tablename__ = "day_summaries"
+
+    model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    version: Mapped[str] = mapped_column(String(64), primary_key=True)
+    segment_key: Mapped[str] = mapped_column(String(64), primary_key=True)
+    segment_value: Mapped[str] = mapped_column(String(128), primary_key=True)
+    day: Mapped[datetime] = mapped_column(primary_key=True)
+    n: Mapped[int] = mapped_column(Integer)
+    payload: Mapped[bytes] = mapped_column(LargeBinary)
+    computed_at: Mapped[datetime]
+
+    __table_args__ = (Index(None, "model_id", "segment_key", "segment_value", "day"),)
+
+
+class DirtyDay(Base):
+    """A day whose hourly summaries changed since its day summaries were merged."""
+
+    __tablename__ = "dirty_days"
+
+    model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    version: Mapped[str] = mapped_column(String(64), primary_key=True)
+    day: Mapped[datetime] = mapped_column(primary_key=True)
     generation: Mapped[int] = mapped_column(Integer, default=1)
     marked_at: Mapped[datetime]
     claimed_by: Mapped[str | None] = mapped_column(String(64), nullable=True)
