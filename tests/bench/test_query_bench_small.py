@@ -25,10 +25,13 @@ def test_small_query_benchmark(postgres_schema_url: str) -> None:
         _truncate_all(engine)
         result = run(postgres_schema_url, 20_000, hours_per_day=2, repeats=3)
         figures = [result[k] for k in ("load_s", "full_refresh_rows_per_s", "incremental_s",
-                                       "incremental_rows_per_s", "query_p50_s", "query_p95_s")]
+                                       "incremental_rows_per_s", "query_p50_s", "query_p95_s",
+                                       "hours_only_p50_s")]
         assert all(math.isfinite(f) and f > 0 for f in figures), result
         assert result["buckets"] == 364 * 2
         assert result["incremental_buckets"] == 728 // 100
+        assert result["full_refresh_days"] == 364  # each day merged once in a full refresh
+        assert 1 <= result["incremental_days"] <= result["incremental_buckets"]
         periods = result["periods"]
         assert len(periods) == 52
 
