@@ -6,6 +6,9 @@ For each dialect, in one run: records/s posting the same rows through a real
 ``calibrant serve`` (started as ``make run`` starts it, one client process,
 batches of 1,000 and of 10,000), records/s of the database's raw bulk insert
 of those rows into a table with the same indexes, and the ratio HTTP/raw.
+Then the outcomes of every case, in 10,000-record batches, posted after their
+predictions are stored (each batch looks its cases' predictions up to mark
+their buckets), with the same raw insert as the yardstick.
 Every measurement starts from an empty table. Afterwards the rows each HTTP
 run stored are compared with the raw insert's (count, distinct ids and sums).
 Timing is printed, never asserted.
@@ -29,7 +32,7 @@ if __name__ == "__main__":
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from tests.bench.ingest_raw import raw_postgresql, raw_sqlite
-from tests.bench.ingest_rows import Checksum, checksum, http_bodies, make_rows
+from tests.bench.ingest_rows import Checksum, checksum, http_bodies, make_rows, outcome_bodies
 from tests.system.server import running_server
 
 from calibrant.config import Settings
@@ -39,6 +42,7 @@ from calibrant.store.engine import make_engine
 FULL_ROWS = 200_000
 SMALL_ROWS = 20_000
 BATCH_SIZES = (1_000, 10_000)
+OUTCOME_BATCH = 10_000
 REQUEST_TIMEOUT_S = 120.0
 # The same server the test suite uses (see tests/conftest.py).
 POSTGRES_URL = os.environ.get(
@@ -54,14 +58,14 @@ def _empty_predictions(engine: sa.Engine) -> None:
             conn.exec_driver_sql("DELETE FROM predictions")
 
 
-def http_run(base_url: str, model: str, bodies: list[tuple[int, bytes]]) -> float:
+def http_run(base_url: str, model: str, bodies: list[tuple[int, bytes]], kind: str = "predictions") -> float:
     """Seconds to post every body in turn from one client; each must be accepted in full."""
     with httpx.Client(base_url=base_url, timeout=REQUEST_TIMEOUT_S) as client:
         client.get("/healthz").raise_for_status()  # connection open before the clock starts
         start = time.perf_counter()
         for items, body in bodies:
             response = client.post(
-                f"/v1/models/{model}/predictions",
+                f"/v1/models/{model}/{kind}",
                 content=body,
                 headers={"content-type": "application/json"},
             )
@@ -86,6 +90,10 @@ def run_dialect(dialect: str, database_url: str, work_dir: Path, n_rows: int) ->
                 result[f"http_{batch_size}_rows_per_s"] = n_rows / seconds
                 with engine.connect() as conn:
                     stored[f"http_{batch_size}"] = checksum(conn, "predictions")
+            # the predictions of the last run are still stored: its model gets the outcomes
+            seconds = http_run(server.base_url, f"bench-{BATCH_SIZES[-1]}",
+                               outcome_bodies(rows, OUTCOME_BATCH), "outcomes")
+            result["http_outcomes_rows_per_s"] = n_rows / seconds
         _empty_predictions(engine)
         if dialect == "postgresql":
             seconds, stored["raw"] = raw_postgresql(database_url, rows)
@@ -96,6 +104,7 @@ def run_dialect(dialect: str, database_url: str, work_dir: Path, n_rows: int) ->
     result["raw_rows_per_s"] = n_rows / seconds
     for batch_size in BATCH_SIZES:
         result[f"ratio_{batch_size}"] = result[f"http_{batch_size}_rows_per_s"] / result["raw_rows_per_s"]
+    result["ratio_outcomes"] = result["http_outcomes_rows_per_s"] / result["raw_rows_per_s"]
     result["checksums"] = stored
     result["stored_rows_agree"] = all(c.agrees_with(stored["raw"]) for c in stored.values())
     result["stored_rows"] = stored["raw"].rows
@@ -145,6 +154,10 @@ def format_table(results: list[dict]) -> str:
                 f"{r['dialect']:<11} {f'HTTP, {batch_size:,}-record batches':<34} {r['rows']:>8,} "
                 f"{r[f'http_{batch_size}_rows_per_s']:>10,.0f} {r[f'ratio_{batch_size}']:>9.2f}"
             )
+        lines.append(
+            f"{r['dialect']:<11} {f'HTTP outcomes, {OUTCOME_BATCH:,}-record batches':<34} {r['rows']:>8,} "
+            f"{r['http_outcomes_rows_per_s']:>10,.0f} {r['ratio_outcomes']:>9.2f}"
+        )
         lines.append(f"{r['dialect']:<11} {raw_name:<34} {r['rows']:>8,} {r['raw_rows_per_s']:>10,.0f}")
         agree = "agree" if r["stored_rows_agree"] else "DIFFER"
         lines.append(f"{'':<11} stored rows, HTTP vs raw: {agree} ({r['stored_rows']:,} rows each)")

@@ -103,3 +103,21 @@ def checksum(conn: sa.Connection, table: str) -> Checksum:
     latest = row[4]
     latest_text = latest.strftime("%Y-%m-%d %H:%M:%S") if isinstance(latest, datetime) else str(latest)[:19]
     return Checksum(int(row[0]), int(row[1]), float(row[2] or 0.0), int(row[3] or 0), latest_text)
+
+
+def outcome_bodies(rows: BenchRows, batch_size: int, seed: int = SEED) -> list[tuple[int, bytes]]:
+    """Outcome bodies for every case of ``rows`` (label Bernoulli(p)), a day after scoring."""
+    rng = random.Random(seed + 1)
+    bodies = []
+    for start in range(0, len(rows), batch_size):
+        stop = min(start + batch_size, len(rows))
+        items = [
+            {
+                "id": rows.case_id[i],
+                "label": int(rng.random() < rows.probability[i]),
+                "observed_at": (rows.scored_at[i] + timedelta(days=1)).strftime("%Y-%m-%dT%H:%M:%SZ"),
+            }
+            for i in range(start, stop)
+        ]
+        bodies.append((stop - start, orjson.dumps({"outcomes": items})))
+    return bodies

@@ -11,7 +11,7 @@ from tests.conftest import Database
 
 def test_small_ingest_benchmark(db: Database, tmp_path: Path):
     result = run_dialect(db.dialect, db.url, tmp_path, SMALL_ROWS)
-    figures = [result["raw_rows_per_s"]]
+    figures = [result["raw_rows_per_s"], result["http_outcomes_rows_per_s"], result["ratio_outcomes"]]
     for batch_size in BATCH_SIZES:
         figures += [result[f"http_{batch_size}_rows_per_s"], result[f"ratio_{batch_size}"]]
     assert all(math.isfinite(f) and f > 0 for f in figures), result

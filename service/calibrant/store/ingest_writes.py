@@ -219,10 +219,13 @@ def _mark_outcome_buckets(conn: Connection, model_id: int, changed: set[str], no
 
     A case without a prediction yet marks nothing: its prediction's ingest will.
     """
+    # IN (subquery), not a join: SQLite planned the join as a scan of the model's
+    # predictions with a scan of staging per row (45 s for 5,000 outcomes against
+    # 160,000 predictions); the IN form searches the primary key per staged id.
     found = conn.execute(
         text(
-            "SELECT s.case_id, p.version, p.scored_at FROM staging_outcomes s "
-            "JOIN predictions p ON p.model_id = :model_id AND p.case_id = s.case_id"
+            "SELECT p.case_id, p.version, p.scored_at FROM predictions p "
+            "WHERE p.model_id = :model_id AND p.case_id IN (SELECT case_id FROM staging_outcomes)"
         ).columns(case_id=String, version=String, scored_at=UTCDateTime),
         {"model_id": model_id},
     )
