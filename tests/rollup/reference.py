@@ -3,7 +3,7 @@
 Each figure names its source. Tolerances follow METHODS.md 0.2: sums-based
 statistics are exact from the summary (compared at ~1e-12 relative); the AUC
 treats fine bins as ties, so it may differ by at most the bins-as-ties bound
-½ Σ_k n1k n0k / (n1 n0); slope and intercept come from bin-mean logits,
+½ Σ_k n1k n0k / (n1 n0); slope and intercept come from per-class bin-mean logits,
 O(w²) ≈ 1e-3 at w = 0.05.
 """
 
@@ -85,17 +85,19 @@ def assert_period_matches(period: dict, rows: pd.DataFrame, *, check_glm: bool =
 
 
 def binned_slope(p: np.ndarray, y: np.ndarray) -> float:
-    """statsmodels GLM Binomial with frequency weights on (y, mean logit of the fine bin):
-    the METHODS 0.2 recipe, applied by the test to its own binning of the raw rows."""
+    """statsmodels GLM Binomial with frequency weights, one row per (fine bin, class) at that
+    class's mean logit in the bin: the METHODS 0.2 recipe, applied by the test to its own
+    binning of the raw rows."""
     x = np.log(p / (1 - p))
     k = fine_bin(p)
     size = FINE_EDGES.size + 1
-    nk = np.bincount(k, minlength=size)
     n1k = np.bincount(k, weights=y, minlength=size)
-    xbar = np.bincount(k, weights=x, minlength=size)[nk > 0] / nk[nk > 0]
-    n1k, n0k = n1k[nk > 0], (nk - np.bincount(k, weights=y, minlength=size))[nk > 0]
-    rows_y = np.r_[np.ones(xbar.size), np.zeros(xbar.size)]
-    rows_x, weight = np.r_[xbar, xbar], np.r_[n1k, n0k]
+    n0k = np.bincount(k, weights=1 - y, minlength=size)
+    with np.errstate(invalid="ignore", divide="ignore"):  # empty cells are dropped below
+        x1k = np.bincount(k, weights=x * y, minlength=size) / n1k
+        x0k = np.bincount(k, weights=x * (1 - y), minlength=size) / n0k
+    rows_y = np.r_[np.ones(size), np.zeros(size)]
+    rows_x, weight = np.r_[x1k, x0k], np.r_[n1k, n0k]
     keep = weight > 0
     fit = sm.GLM(rows_y[keep], sm.add_constant(rows_x[keep]), family=sm.families.Binomial(),
                  freq_weights=weight[keep]).fit()
@@ -103,19 +105,18 @@ def binned_slope(p: np.ndarray, y: np.ndarray) -> float:
 
 
 def slope_tolerance(x: np.ndarray, y: np.ndarray) -> float:
-    """How far the slope fitted on bin-mean logits may be from the row-level fit.
+    """How far (relative) the slope fitted from the summary may be from the row-level fit.
 
-    Both classes of a fine bin are placed at the bin's common mean logit, so the
-    sufficient statistic Σ y·x moves by Σ_k n1k (x̄1k − x̄k): sampling noise of
-    sd ≈ (w/√12)·√(n ȳ(1 − ȳ)), i.e. a slope error of sd ≈ (w/√12) / (sd(x)·√(n ȳ(1 − ȳ))).
-    Measured on this traffic's law: 2.7e-3 at n = 500, 1.1e-3 at 2,000, 3e-4 at 50,000;
-    four such sd (the error is noise, so a bound of ~3 sd fails on a few windows in a
-    hundred), never tighter than METHODS 0.2's ~1e-3. :func:`binned_slope` checks the
-    method itself tightly.
+    Each class of a fine bin sits at its own mean logit, so Σ y·x is exact and only
+    log(1 + e^(a+bx)) is approximated, to second order in the bin width (METHODS 0.2).
+    Measured on this traffic's law (expit(N(−0.8, 1.1)), truth expit(0.3 + 0.8x)),
+    40 seeds each: at most 1.8e-4 at n = 500, 2.0e-4 at 2,000, 1.9e-4 at 50,000 — a
+    bias, not noise, so it does not shrink with n. The bound is METHODS 0.2's ~1e-3
+    (five times the worst seen); :func:`binned_slope` checks the method itself tightly.
+    ``x`` and ``y`` are kept in the signature for callers that scale by the data.
     """
-    w = 0.05
-    sd = w / math.sqrt(12.0) / (float(np.std(x)) * math.sqrt(len(y) * y.mean() * (1 - y.mean())))
-    return max(GLM_TOLERANCE, 4.0 * sd)
+    del x, y
+    return GLM_TOLERANCE
 
 
 def assert_empty(period: dict) -> None:

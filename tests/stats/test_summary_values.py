@@ -165,9 +165,10 @@ def _glm_on_own_bins(s: Summary) -> tuple[np.ndarray, np.ndarray, float]:
     """statsmodels GLM Binomial with freq_weights on the summary's own bins."""
     v = s.labelled(False)
     n1, n0 = v.pos[:, F["n"]], v.neg[:, F["n"]]
-    xb = (v.pos[:, F["sx"]] + v.neg[:, F["sx"]]) / (n1 + n0)
+    with np.errstate(invalid="ignore", divide="ignore"):  # empty cells are dropped below
+        x1, x0 = v.pos[:, F["sx"]] / n1, v.neg[:, F["sx"]] / n0  # each class at its own mean logit
     y = np.r_[np.ones(n1.size), np.zeros(n0.size)]
-    x, w = np.r_[xb, xb], np.r_[n1, n0]
+    x, w = np.r_[x1, x0], np.r_[n1, n0]
     keep = w > 0
     fam = sm.families.Binomial()
     fit = sm.GLM(y[keep], sm.add_constant(x[keep]), family=fam, freq_weights=w[keep]).fit()
@@ -186,13 +187,14 @@ def test_calibration_fits_on_bins() -> None:
     assert rec.intercept.value == pytest.approx(params[0], rel=1e-7)
     assert rec.slope.se == pytest.approx(bse[1], rel=1e-6)
     assert citl.value == pytest.approx(citl_sm, rel=1e-7)
-    # source: statsmodels Logit on the raw rows; METHODS.md 0.2: slope error O(w²), 3e-4 seen
+    # source: statsmodels Logit on the raw rows; METHODS.md 0.2: error O(w²). With each class
+    # at its own mean logit we measured 1.1e-4 on slope and intercept and 1.5e-5 on CITL here.
     x = logit(np.clip(p, EPS, 1 - EPS))
     raw = sm.Logit(y, sm.add_constant(x)).fit(disp=0)
-    assert abs(rec.slope.value - raw.params[1]) <= 1e-3
-    assert abs(rec.intercept.value - raw.params[0]) <= 1e-3
+    assert abs(rec.slope.value - raw.params[1]) <= 3e-4
+    assert abs(rec.intercept.value - raw.params[0]) <= 3e-4
     raw_citl = sm.GLM(y, np.ones((y.size, 1)), family=sm.families.Binomial(), offset=x).fit()
-    assert abs(citl.value - raw_citl.params[0]) <= 1e-3
+    assert abs(citl.value - raw_citl.params[0]) <= 1e-4
     # source: METHODS.md 10 `calibration_intercept_slope_from_histogram` (plain 0.05 grid;
     # ours adds the logit(j/20) edges, so the two binned fits differ by O(w²) as well)
     hist = BUCKET_REF["width_0.05"]["calibration_intercept_slope_from_histogram"]["value"]

@@ -6,8 +6,9 @@ values, so the definitions are the array version's (METHODS.md 0.2):
 
 * AUC, DeLong SE, average precision: every fine bin is one tied score. AUC
   error ≤ ½ Σ_k n1k n0k/(n1 n0) (reported as ``extra['binning_error_bound']``).
-* Calibration intercept (CITL) and slope: logistic GLMs on the bin-mean logit
-  Sx/n with class counts as frequency weights; error O(w²).
+* Calibration intercept (CITL) and slope: logistic GLMs with each class of a
+  fine bin at its own mean logit Sx/n, class counts as frequency weights;
+  second-order error in the within-bin spread (w = 0.05 in logit).
 * Murphy/Stephenson decomposition, ECE/MCE, reliability diagram on equal-width
   bins [k/B, (k+1)/B), B dividing 20: exact (the fine grid contains j/20).
   Quantile bins: edges snapped to fine edges (one fine bin's worth of
@@ -155,11 +156,20 @@ def reliability_diagram(data: Summary | LabelledBins, *, n_bins: int = 10,
 
 
 def _bin_rows(v: LabelledBins) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """One row per (bin, class) with weight > 0: (y, bin-mean logit, weight)."""
+    """One row per (bin, class) with weight > 0: (y, the class's mean logit in the bin, weight).
+
+    Each class at its own mean logit keeps Σ y·x exact, so the GLM's score
+    equations are exact in their y·x term and only the log(1 + e^(a+bx)) term is
+    approximated (second order in the within-class spread). Placing both classes
+    at the bin's common mean logit made that term first order as well: about
+    0.03/√n on the slope where this gives about 1e-4 (measured on Beta mixes).
+    """
     n1, n0 = v.pos[:, F["n"]], v.neg[:, F["n"]]
-    xbar = (v.pos[:, F["sx"]] + v.neg[:, F["sx"]]) / (n1 + n0)
+    with np.errstate(invalid="ignore", divide="ignore"):  # empty classes are dropped below
+        x1 = v.pos[:, F["sx"]] / n1
+        x0 = v.neg[:, F["sx"]] / n0
     y = np.concatenate([np.ones(n1.size), np.zeros(n0.size)])
-    x = np.concatenate([xbar, xbar])
+    x = np.concatenate([x1, x0])
     w = np.concatenate([n1, n0])
     keep = w > 0
     return y[keep], x[keep], w[keep]
@@ -167,18 +177,18 @@ def _bin_rows(v: LabelledBins) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 def calibration_intercept(data: Summary | LabelledBins, *, implicit_negatives: bool = False
                           ) -> Estimate:
-    """Calibration-in-the-large intercept: offset GLM on bin-mean logits, counts as weights."""
+    """Calibration-in-the-large intercept: offset GLM on per-class bin-mean logits, counts as weights."""
     v = view(data, implicit_negatives)
     y, x, w = _bin_rows(v)
     res = calibration_intercept_from_logits(y, x, sample_weight=w)
     if res.ok:
-        res.extra["approximation"] = "bin-mean logits (METHODS.md 3, from the bucket)"
+        res.extra["approximation"] = "per-class bin-mean logits (METHODS.md 3, from the summary)"
     return res
 
 
 def logistic_recalibration(data: Summary | LabelledBins, *, implicit_negatives: bool = False,
                            min_events: int = MIN_EVENTS_SLOPE) -> Recalibration:
-    """Calibration slope and free-slope intercept (Cox 1958) on bin-mean logits."""
+    """Calibration slope and free-slope intercept (Cox 1958) on per-class bin-mean logits."""
     v = view(data, implicit_negatives)
     y, x, w = _bin_rows(v)
     return logistic_recalibration_from_logits(y, x, sample_weight=w, min_events=min_events)
