@@ -7,7 +7,12 @@ with a restart after every signal, as a person resolving each alarm would,
 and the observed false alarms per case are compared with 1/ARL0 (goal: within
 ±20 %). Detection delay: cases from a change to the first signal after it,
 for an odds doubling (q = 2p/(1 + p), Steiner et al. 2000) and a slope change
-(logit q = 0.7 logit p). Run: ``.venv/bin/python -m tests.bench.alarms``.
+(logit q = 0.7 logit p). The weekly degradation rule (excess log-loss,
+``tests.bench.weekly_rule``) is measured on the same mixes and shifts: its
+in-control weekly false alarms against its level (at most level × weeks, the
+effect floor makes it fewer) and its delay to the end of the first firing week.
+Every delay is shown in cases and in weeks at a stated weekly volume. Run:
+``.venv/bin/python -m tests.bench.alarms``.
 """
 
 from __future__ import annotations
@@ -17,6 +22,7 @@ from datetime import UTC, datetime
 
 import numpy as np
 from scipy.special import expit, logit
+from tests.bench import weekly_rule
 
 from calibrant.alarms.charts import design_for
 from calibrant.alarms.rules import ChartParams
@@ -66,11 +72,22 @@ def main() -> None:
     ap.add_argument("--arl0", type=float, default=2000.0)
     ap.add_argument("--cases", type=int, default=400_000)
     ap.add_argument("--runs", type=int, default=300)
+    ap.add_argument("--weekly-volume", type=int, default=2000, help="cases per week")
+    ap.add_argument("--weeks", type=int, default=2000, help="in-control weeks for the weekly rule")
     args = ap.parse_args()
     rng = np.random.default_rng(20261202)
-    print(f"target ARL0 {args.arl0:g} cases; {args.cases} in-control cases per chart")
-    print("| mix | chart | h | false alarms | expected | ratio | delay odds x2 | delay slope 0.7 |")
+    v = args.weekly_volume
+    level = weekly_rule.PARAMS.level
+    print(f"target ARL0 {args.arl0:g} cases; {args.cases} in-control cases per chart; weekly rule: "
+          f"{args.weeks} in-control weeks of {v} cases, level {level:g}, no labelled reference")
+    print(f"delays: mean cases from the change (lower chart: odds halved), and weeks at {v} cases a week")
+    print("| mix | rule | h / level | false alarms | expected | ratio | delay odds x2 | delay slope 0.7 |")
     print("|---|---|---|---|---|---|---|---|")
+
+    def cell(cases: float, missed: int = 0) -> str:
+        text = f"{cases:.0f} ({cases / v:.2f} wk)"
+        return text + (f", {missed} of {args.runs} missed" if missed else "")
+
     for name, (a, b) in MIXES.items():
         def sampler(g, n, a=a, b=b):
             return g.beta(a, b, n)
@@ -83,8 +100,14 @@ def main() -> None:
             odds = 2.0 if r_a > 1 else 0.5
             d_odds = delay(h, r_a, sampler, lambda q, o=odds: o * q / (1 - q + o * q), rng, args.runs)
             d_slope = delay(h, r_a, sampler, lambda q: expit(0.7 * logit(q)), rng, args.runs)
-            print(f"| {name} | {label} | {h:.3f} | {fa} | {expected:.1f} | {fa / expected:.2f} | "
-                  f"{d_odds:.0f} | {d_slope:.0f} |")
+            print(f"| {name} | {label} chart | {h:.3f} | {fa} | {expected:.1f} | {fa / expected:.2f} | "
+                  f"{cell(d_odds)} | {cell(d_slope)} |")
+        fa = weekly_rule.false_alarms(sampler, rng, args.weeks, v)
+        bound = level * args.weeks
+        d_odds, m_odds = weekly_rule.delay(sampler, lambda q: 2 * q / (1 + q), rng, args.runs, v)
+        d_slope, m_slope = weekly_rule.delay(sampler, lambda q: expit(0.7 * logit(q)), rng, args.runs, v)
+        print(f"| {name} | weekly excess log-loss | {level:g} | {fa} | ≤ {bound:.1f} | {fa / bound:.2f} | "
+              f"{cell(d_odds, m_odds)} | {cell(d_slope, m_slope)} |")
 
 
 if __name__ == "__main__":
