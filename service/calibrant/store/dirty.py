@@ -14,12 +14,9 @@ from dataclasses import dataclass
 from datetime import datetime, timedelta
 
 from sqlalchemy import Connection, Table, and_, delete, func, or_, select, update
-from sqlalchemy.dialects.postgresql import insert as postgresql_insert
-from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 
 from calibrant.store.rollup_tables import ALL_SEGMENT, BucketSummary, DirtyBucket, DirtyDay
-
-_INSERT = {"postgresql": postgresql_insert, "sqlite": sqlite_insert}
+from calibrant.store.upsert import insert_for
 
 
 def hour_of(instant: datetime) -> datetime:
@@ -95,7 +92,7 @@ def mark(conn: Connection, keys: Iterable[Key], now: datetime) -> int:
         for k in ordered
     ]
     t = tier.table
-    stmt = _INSERT[conn.dialect.name](t)
+    stmt = insert_for(conn.dialect.name, t)
     stmt = stmt.on_conflict_do_update(
         index_elements=["model_id", "version", tier.time_column],
         set_={"generation": t.c.generation + 1, "marked_at": stmt.excluded.marked_at},

@@ -6,14 +6,10 @@ from dataclasses import dataclass
 from datetime import datetime
 
 from sqlalchemy import func, select
-from sqlalchemy.dialects.postgresql import insert as postgresql_insert
-from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.orm import Session
 
 from calibrant.store.tables import Model, Outcome, Prediction
-
-# Both dialects spell "insert unless it exists" as ON CONFLICT DO NOTHING.
-_DIALECT_INSERT = {"postgresql": postgresql_insert, "sqlite": sqlite_insert}
+from calibrant.store.upsert import insert_for
 
 
 def get(session: Session, name: str) -> Model | None:
@@ -41,9 +37,10 @@ def get_or_create(session: Session, name: str, now: datetime) -> tuple[Model, bo
         "created_at": now,
         "updated_at": now,
     }
-    dialect_insert = _DIALECT_INSERT[session.get_bind().dialect.name]
     result = session.execute(
-        dialect_insert(Model).values(**values).on_conflict_do_nothing(index_elements=["name"])
+        insert_for(session.get_bind().dialect.name, Model)
+        .values(**values)
+        .on_conflict_do_nothing(index_elements=["name"])
     )
     created = bool(result.rowcount)
     model = get(session, name)

@@ -9,8 +9,6 @@ from datetime import datetime, timedelta
 
 import numpy as np
 from sqlalchemy import Connection, delete, func, insert, select
-from sqlalchemy.dialects.postgresql import insert as postgresql_insert
-from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 
 from calibrant.store.dirty import BucketKey, DayKey, Key
 from calibrant.store.rollup_tables import (
@@ -21,12 +19,12 @@ from calibrant.store.rollup_tables import (
     SegmentValue,
 )
 from calibrant.store.tables import Outcome, Prediction
+from calibrant.store.upsert import insert_for
 
 HOUR = timedelta(hours=1)
 DAY = timedelta(days=1)
 # Summary table and its time column, per key type.
 _TIER_TABLE: dict[type, tuple[type, str]] = {BucketKey: (BucketSummary, "hour"), DayKey: (DaySummary, "day")}
-_INSERT = {"postgresql": postgresql_insert, "sqlite": sqlite_insert}
 
 
 @dataclass(frozen=True, slots=True)
@@ -109,7 +107,7 @@ def add_segment_values(conn: Connection, model_id: int, key: str, values: list[s
     """Record newly seen values; a value another refresher recorded first is kept as it is."""
     if values:
         conn.execute(
-            _INSERT[conn.dialect.name](SegmentValue).on_conflict_do_nothing(),
+            insert_for(conn.dialect.name, SegmentValue).on_conflict_do_nothing(),
             [
                 {"model_id": model_id, "segment_key": key, "segment_value": v, "first_seen": now}
                 for v in values
