@@ -101,10 +101,8 @@ def _recompute(
     lease: timedelta,
     report: RefreshReport,
 ) -> bool:
-    with engine.begin() as conn:
-        claim = dirty.claim(conn, key, worker, clock.now(), lease)
+    claim = _claim(engine, clock, key, worker, lease, report)
     if claim is None:
-        report.busy += 1
         return False
     computed = _read_bucket(engine, key, chunk_rows)
     # No transaction is open here: on SQLite every transaction holds the write lock,
@@ -140,12 +138,7 @@ def _write_bucket(engine: Engine, clock: Clock, claim: dirty.Claim, computed: _C
     with engine.begin() as conn:
         for seg_key, values in computed.book.admitted.items():
             rollup_repo.add_segment_values(conn, key.model_id, seg_key, values, now)
-        rollup_repo.replace_summaries(
-            conn,
-            key,
-            {seg: (_rows_in(s), s.to_bytes()) for seg, s in computed.summaries.items()},
-            now,
-        )
+        rollup_repo.replace_summaries(conn, key, _encoded(computed.summaries), now)
         clean = dirty.finish(conn, claim)
         # Last, so that this transaction's locks are taken in the order bucket, then day.
         dirty.mark(conn, [DayKey(key.model_id, key.version, day_of(key.hour))], now)
@@ -156,10 +149,8 @@ def _merge_day(
     engine: Engine, clock: Clock, key: DayKey, worker: str, lease: timedelta, report: RefreshReport
 ) -> bool:
     """Day summaries = the merge of the day's stored hourly summaries, per segment."""
-    with engine.begin() as conn:
-        claim = dirty.claim(conn, key, worker, clock.now(), lease)
+    claim = _claim(engine, clock, key, worker, lease, report)
     if claim is None:
-        report.busy += 1
         return False
     with engine.begin() as conn:
         stored = rollup_repo.hours_of_day(conn, key)
@@ -168,14 +159,24 @@ def _merge_day(
         by_segment[(seg_key, seg_value)].append(Summary.from_bytes(payload))
     merged = {seg: Summary.merge_many(parts) for seg, parts in by_segment.items()}
     with engine.begin() as conn:
-        rollup_repo.replace_summaries(
-            conn, key, {seg: (_rows_in(s), s.to_bytes()) for seg, s in merged.items()}, clock.now()
-        )
+        rollup_repo.replace_summaries(conn, key, _encoded(merged), clock.now())
         if not dirty.finish(conn, claim):
             report.days_requeued += 1
     report.merged_days.append((key, claim.generation))
     return True
 
 
-def _rows_in(summary) -> int:
-    return round(sum(summary.counts().values()))
+def _claim(
+    engine: Engine, clock: Clock, key: dirty.Key, worker: str, lease: timedelta, report: RefreshReport
+) -> dirty.Claim | None:
+    """Take the mark for this worker in its own transaction; None (counted busy) if held."""
+    with engine.begin() as conn:
+        claim = dirty.claim(conn, key, worker, clock.now(), lease)
+    if claim is None:
+        report.busy += 1
+    return claim
+
+
+def _encoded(summaries: dict[tuple[str, str], Summary]) -> dict[tuple[str, str], tuple[int, bytes]]:
+    """Per segment: (rows summarised, stored bytes)."""
+    return {seg: (round(sum(s.counts().values())), s.to_bytes()) for seg, s in summaries.items()}

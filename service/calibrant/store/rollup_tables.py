@@ -27,66 +27,63 @@ OTHER_VALUE = "other"  # where values beyond a key's first MAX_SEGMENT_VALUES go
 MAX_SEGMENT_VALUES = 50
 
 
-class BucketSummary(Base):
+class _SummaryRow:
+    """Columns every summary tier has; the tier adds its time column to the key."""
+
+    model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    version: Mapped[str] = mapped_column(String(64), primary_key=True)
+    segment_key: Mapped[str] = mapped_column(String(64), primary_key=True)
+    segment_value: Mapped[str] = mapped_column(String(128), primary_key=True)
+    n: Mapped[int] = mapped_column(Integer)
+    payload: Mapped[bytes] = mapped_column(LargeBinary)
+    computed_at: Mapped[datetime]
+
+
+class _DirtyMark:
+    """Columns of a dirty mark (``store.dirty``); the tier adds its time column to the key."""
+
+    model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    version: Mapped[str] = mapped_column(String(64), primary_key=True)
+    generation: Mapped[int] = mapped_column(Integer, default=1)
+    marked_at: Mapped[datetime]
+    claimed_by: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    claimed_until: Mapped[datetime | None] = mapped_column(nullable=True)
+
+
+class BucketSummary(_SummaryRow, Base):
     """The mergeable summary (``stats.summary.Summary.to_bytes``) of one segment-hour."""
 
     __tablename__ = "bucket_summaries"
 
-    model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    version: Mapped[str] = mapped_column(String(64), primary_key=True)
-    segment_key: Mapped[str] = mapped_column(String(64), primary_key=True)
-    segment_value: Mapped[str] = mapped_column(String(128), primary_key=True)
     hour: Mapped[datetime] = mapped_column(primary_key=True)
-    n: Mapped[int] = mapped_column(Integer)
-    payload: Mapped[bytes] = mapped_column(LargeBinary)
-    computed_at: Mapped[datetime]
 
     __table_args__ = (Index(None, "model_id", "segment_key", "segment_value", "hour"),)
 
 
-class DirtyBucket(Base):
+class DirtyBucket(_DirtyMark, Base):
     """A bucket whose raw rows changed since its summaries were computed."""
 
     __tablename__ = "dirty_buckets"
 
-    model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    version: Mapped[str] = mapped_column(String(64), primary_key=True)
     hour: Mapped[datetime] = mapped_column(primary_key=True)
-    generation: Mapped[int] = mapped_column(Integer, default=1)
-    marked_at: Mapped[datetime]
-    claimed_by: Mapped[str | None] = mapped_column(String(64), nullable=True)
-    claimed_until: Mapped[datetime | None] = mapped_column(nullable=True)
 
 
-class DaySummary(Base):
+class DaySummary(_SummaryRow, Base):
     """The merge of one UTC day's hourly summaries of a segment (same bytes format)."""
 
     __tablename__ = "day_summaries"
 
-    model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    version: Mapped[str] = mapped_column(String(64), primary_key=True)
-    segment_key: Mapped[str] = mapped_column(String(64), primary_key=True)
-    segment_value: Mapped[str] = mapped_column(String(128), primary_key=True)
     day: Mapped[datetime] = mapped_column(primary_key=True)
-    n: Mapped[int] = mapped_column(Integer)
-    payload: Mapped[bytes] = mapped_column(LargeBinary)
-    computed_at: Mapped[datetime]
 
     __table_args__ = (Index(None, "model_id", "segment_key", "segment_value", "day"),)
 
 
-class DirtyDay(Base):
+class DirtyDay(_DirtyMark, Base):
     """A day whose hourly summaries changed since its day summaries were merged."""
 
     __tablename__ = "dirty_days"
 
-    model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    version: Mapped[str] = mapped_column(String(64), primary_key=True)
     day: Mapped[datetime] = mapped_column(primary_key=True)
-    generation: Mapped[int] = mapped_column(Integer, default=1)
-    marked_at: Mapped[datetime]
-    claimed_by: Mapped[str | None] = mapped_column(String(64), nullable=True)
-    claimed_until: Mapped[datetime | None] = mapped_column(nullable=True)
 
 
 class SegmentValue(Base):
