@@ -85,3 +85,22 @@ def test_label_corrected_before_the_chart_saw_it_is_fed_once(db: Database) -> No
     stream = _stream(client, "early")
     assert stream["consumed"] == len(d.ids)
     assert stream["skipped_late"] == 0
+
+
+def test_label_corrected_inside_the_lag_before_the_chart_saw_it_is_fed_once(db: Database) -> None:
+    # No horizon, lag L = 1 day: a case is mature once its first label's observation is L
+    # old. The corrections below are observed within the last L days when the chart first
+    # runs; the cases matured long before (their first labels), so they are fed, once.
+    clock = FixedClock(T0)
+    client = make_client(db, clock=clock)
+    setup_model(client, "lagged", keep=CHARTS, chart_params=SMALL_DESIGN, outcome_horizon_days=None,
+                outcome_lag_days=1)
+    d = make_day(np.random.default_rng(23), 0, 80)
+    post_day(client, "lagged", d)
+    clock.set(T0 + timedelta(days=4))
+    _correct(client, "lagged", d, observed_after=timedelta(days=3))  # observed in [T0+3d, T0+4d)
+    refresh(client)
+    refresh(client)
+    stream = _stream(client, "lagged")
+    assert stream["consumed"] == len(d.ids)
+    assert stream["skipped_late"] == 0

@@ -31,9 +31,9 @@ SELECT :model_id, 'c' || lpad(g::text, 9, '0'), :version,
 FROM generate_series(CAST(:first AS bigint), CAST(:last AS bigint)) AS g
 """
 _OUTCOMES = """
-INSERT INTO outcomes (model_id, case_id, label, observed_at, received_at, revision)
+INSERT INTO outcomes (model_id, case_id, label, observed_at, first_observed_at, received_at, revision)
 SELECT model_id, case_id, CASE WHEN random() < probability THEN 1 ELSE 0 END,
-       scored_at + interval '2 days', now(), 1
+       scored_at + interval '2 days', scored_at + interval '2 days', now(), 1
 FROM predictions WHERE model_id = :model_id AND case_id > :after ORDER BY case_id
 """
 

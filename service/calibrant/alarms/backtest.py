@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy.orm import Session
 
-from calibrant.alarms import charts, corrections, windows
+from calibrant.alarms import charts, windows
 from calibrant.alarms.rules import WINDOW_KINDS, ChartParams, Kind
 from calibrant.alarms.service import ensure_defaults
 from calibrant.errors import NotFound, invalid
@@ -77,9 +77,7 @@ def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetim
     book = SegmentBook(list(model.segment_keys or []), rollup_repo.segment_values(conn, model.id))
     per_stream: dict[tuple[str, str, str], list[tuple[Any, int]]] = {}
     for version in alarm_repo.versions_of(conn, model.id):
-        fixes = corrections.corrected_cases(conn, model, version, after=start)
-        cases = corrections.reorder(alarm_repo.mature_cases(conn, model, version, after=start, now=end),
-                                    fixes).cases  # the live charts' order (corrections.py)
+        cases = alarm_repo.mature_cases(conn, model, version, after=start, now=end)
         for i, tags in enumerate(cases.tags):
             if cases.label[i] < 0 or not start <= cases.matured_at[i] < end:
                 continue

@@ -20,17 +20,17 @@ more than ``redesign_mean_change`` (relative), and at every reset.
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
 
-from calibrant.alarms import corrections
 from calibrant.alarms.rules import ChartParams
 from calibrant.rollup.compute import SegmentBook
 from calibrant.stats.cusum import CusumState, advance, new_chart
 from calibrant.stats.cusum_design import arl0_for_false_alarm_budget, design_cusum
 from calibrant.store import alarm_repo, rollup_repo
+from calibrant.store.alarm_repo import MatureCases
 from calibrant.store.alarm_tables import AlarmRule, ChartStream
 from calibrant.store.rollup_tables import ALL_SEGMENT
 from calibrant.store.tables import Model
@@ -212,9 +212,7 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
         (r.id, (s.version, s.segment_key, s.segment_value)): s
         for r, _ in rules for s in alarm_repo.streams_of(session, r.id)
     }
-    previous_run = {key: s.updated_at for key, s in streams.items()}  # before _count_late moves it
-    lag = timedelta(days=model.outcome_lag_days or 0)
-    work: list[tuple[AlarmRule, ChartParams, ChartStream, list[int], tuple[Any, ...]]] = []
+    work: list[tuple[AlarmRule, ChartParams, ChartStream, list[int], MatureCases]] = []
     for version in alarm_repo.versions_of(conn, model.id):
         mine = [s for (_, k), s in streams.items() if k[0] == version]
         has_all = all((r.id, (version, ALL_SEGMENT, ALL_SEGMENT)) in streams for r, _ in rules)
@@ -222,9 +220,7 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
         # Read from the oldest watermark of the version's streams; a rule without its
         # "all" stream yet (new rule, new version) reads the whole history.
         after = min(marks) if has_all and marks and None not in marks else None  # type: ignore[type-var]
-        fixes = corrections.corrected_cases(conn, model, version, after=after)
-        view = corrections.reorder(alarm_repo.mature_cases(conn, model, version, after=after, now=now), fixes)
-        cases = view.cases
+        cases = alarm_repo.mature_cases(conn, model, version, after=after, now=now)
         _count_late(session, model, version, streams, book, now)
         routes: dict[StreamKey, list[int]] = {}
         for i, tags in enumerate(cases.tags):
@@ -239,16 +235,11 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
                                          unlabelled_at_maturity=0, recent=b"", path=[], updated_at=now)
                     session.add(stream)
                     streams[(rule.id, key)] = stream
-                work.append((rule, params, stream, idx, (view, fixes, previous_run.get((rule.id, key)))))
+                work.append((rule, params, stream, idx, cases))
     n_charts = len(streams)
-    for rule, params, stream, idx, (view, fixes, last_run) in work:
-        cases = view.cases
+    for rule, params, stream, idx, cases in work:
         fresh = [i for i in idx if stream.watermark_at is None
                  or (cases.matured_at[i], cases.case_id[i]) > (stream.watermark_at, stream.watermark_case)]
-        if fixes and stream.watermark_at is not None and last_run is not None:
-            stream.skipped_late += corrections.passed_corrections(
-                view, fixes, idx, watermark=(stream.watermark_at, stream.watermark_case),
-                previous_run=last_run, lag=lag)
         if not fresh:
             continue
         labels = cases.label[fresh]

@@ -4,9 +4,10 @@ Maturity time of a case (the charts' processing order is (matured_at, case_id)):
 
 * with an outcome horizon H and lag L: the end of its scored hour + H + L, the
   moment its bucket becomes mature (DESIGN 3), whether or not a label came;
-* without a horizon: the later of ``scored_at`` and the outcome's
-  ``observed_at`` (it is mature once both are known), no earlier than L days
-  before now.
+* without a horizon: the later of ``scored_at`` and the ``observed_at`` of the
+  case's first label (it is mature once both are known), no earlier than L days
+  before now. A correction keeps that time (``Outcome.first_observed_at``), so a
+  case never moves in the order: a correction behind a watermark is late.
 """
 
 from __future__ import annotations
@@ -113,11 +114,11 @@ def versions_of(conn: Connection, model_id: int) -> list[str]:
     return sorted(r[0] for r in rows)
 
 
-def _maturity(model: Model, scored_at: datetime, observed_at: datetime | None) -> datetime | None:
+def _maturity(model: Model, scored_at: datetime, first_observed: datetime | None) -> datetime | None:
     if model.outcome_horizon_days is not None:
         delay = timedelta(days=model.outcome_horizon_days + (model.outcome_lag_days or 0))
         return _floor_hour(scored_at) + HOUR + delay
-    return None if observed_at is None else max(scored_at, observed_at)
+    return None if first_observed is None else max(scored_at, first_observed)
 
 
 def mature_cases(conn: Connection, model: Model, version: str, *, after: datetime | None,
@@ -126,7 +127,7 @@ def mature_cases(conn: Connection, model: Model, version: str, *, after: datetim
     sorted by (matured_at, case_id). The caller drops those at or before its watermark."""
     query = (
         select(Prediction.case_id, Prediction.probability, Prediction.scored_at, Prediction.tags,
-               Outcome.label, Outcome.observed_at)
+               Outcome.label, Outcome.first_observed_at)
         .where(Prediction.model_id == model.id, Prediction.version == version)
     )
     join = and_(Outcome.model_id == Prediction.model_id, Outcome.case_id == Prediction.case_id)
@@ -139,12 +140,12 @@ def mature_cases(conn: Connection, model: Model, version: str, *, after: datetim
     else:
         cutoff = now - timedelta(days=model.outcome_lag_days or 0)
         query = query.join(Outcome, join).where(Prediction.scored_at <= cutoff,
-                                                Outcome.observed_at <= cutoff)
+                                                Outcome.first_observed_at <= cutoff)
         if after is not None:
-            query = query.where(or_(Prediction.scored_at >= after, Outcome.observed_at >= after))
+            query = query.where(or_(Prediction.scored_at >= after, Outcome.first_observed_at >= after))
     rows = []
-    for case_id, p, scored_at, tags, label, observed_at in conn.execute(query):
-        matured = _maturity(model, scored_at, observed_at)
+    for case_id, p, scored_at, tags, label, first_observed in conn.execute(query):
+        matured = _maturity(model, scored_at, first_observed)
         if matured is None or (after is not None and matured < after):
             continue
         state = (0 if model.implicit_negatives else -1) if label is None else label
@@ -170,7 +171,7 @@ def outcomes_received_since(conn: Connection, model: Model, version: str,
                             since: datetime) -> list[LateOutcome]:
     """Outcomes (new or corrected) received after ``since``, with their case's maturity time."""
     query = (
-        select(Prediction.case_id, Prediction.scored_at, Prediction.tags, Outcome.observed_at,
+        select(Prediction.case_id, Prediction.scored_at, Prediction.tags, Outcome.first_observed_at,
                Outcome.received_at)
         .join(Outcome, and_(Outcome.model_id == Prediction.model_id,
                             Outcome.case_id == Prediction.case_id))
@@ -178,8 +179,8 @@ def outcomes_received_since(conn: Connection, model: Model, version: str,
                Outcome.received_at > since)
     )
     out = []
-    for case_id, scored_at, tags, observed_at, received_at in conn.execute(query):
-        matured = _maturity(model, scored_at, observed_at)
+    for case_id, scored_at, tags, first_observed, received_at in conn.execute(query):
+        matured = _maturity(model, scored_at, first_observed)
         if matured is not None:
             out.append(LateOutcome(matured, case_id, orjson.loads(tags) if tags else {}, received_at))
     return out

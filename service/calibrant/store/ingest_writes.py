@@ -180,8 +180,9 @@ def upsert_outcomes(
     if new_rows:
         conn.execute(
             text(
-                "INSERT INTO outcomes (model_id, case_id, label, observed_at, received_at, revision) "
-                "VALUES (:model_id, :case_id, :label, :observed_at, :received_at, :revision)"
+                "INSERT INTO outcomes "
+                "(model_id, case_id, label, observed_at, first_observed_at, received_at, revision) "
+                "VALUES (:model_id, :case_id, :label, :observed_at, :observed_at, :received_at, :revision)"
             ),
             new_rows,
         )

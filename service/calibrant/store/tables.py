@@ -90,6 +90,9 @@ class Outcome(Base):
     case_id: Mapped[str] = mapped_column(case_id_type(), primary_key=True)
     label: Mapped[int] = mapped_column(SmallInteger)
     observed_at: Mapped[datetime]
+    # observed_at of the first label, kept through corrections: without an outcome horizon a
+    # case matures when its first outcome was observed, so a correction never moves it.
+    first_observed_at: Mapped[datetime]
     received_at: Mapped[datetime]
     revision: Mapped[int] = mapped_column(Integer, default=1)  # 1 = first label; +1 per correction
 
