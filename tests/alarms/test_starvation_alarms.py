@@ -6,7 +6,7 @@ mature predictions (at least 50) have no outcome. It is a deterministic
 condition on the feeds, so every expected figure is counted from the test's own
 rows: the silence from the latest ``scored_at`` the test posted, the share with
 pandas over the predictions whose scored hour is mature (hour end + H ≤ now,
-DESIGN 3) and lies in the 7 days before the maturity boundary. It is checked
+DESIGN 3) and lies in the 7 days that end with the newest mature hour. It is checked
 at every evaluation and resolves itself once the feeds are healthy.
 """
 
@@ -99,10 +99,18 @@ def test_mature_predictions_without_outcomes_fire_until_the_outcomes_arrive(db: 
     fresh = [T0 + timedelta(days=14, hours=6 + h) for h in range(12)]
     post_day(client, "s", _recent(rng, 14, fresh), outcomes=False)
     frames.append(pd.DataFrame({"scored_at": pd.to_datetime(fresh, utc=True), "labelled": False}))
+    # Either side of the maturity boundary: the newest mature hour (13 d 23 h) counts in the
+    # window, the first immature one (14 d 00 h) does not.
+    edge = [T0 + timedelta(days=13, hours=23, minutes=m) for m in (5, 35)] + \
+        [T0 + timedelta(days=14, minutes=m) for m in (5, 35)]
+    post_day(client, "s", _recent(rng, 13, edge), outcomes=False)
+    frames.append(pd.DataFrame({"scored_at": pd.to_datetime(edge, utc=True), "labelled": False}))
     rows = pd.concat(frames, ignore_index=True)
-    # Mature: scored hour ends at least H before now; the window is the 7 days before that boundary.
-    boundary = pd.Timestamp(now - HORIZON - timedelta(hours=1))
-    window = rows[(rows.scored_at >= boundary - pd.Timedelta(WINDOW)) & (rows.scored_at < boundary)]
+    # Mature: scored hour ends at least H before now; the window is the 7 days ending with the
+    # newest mature hour, so it stops where the first immature hour begins.
+    first_immature = pd.Timestamp(now - HORIZON)
+    window = rows[(rows.scored_at >= first_immature - pd.Timedelta(WINDOW))
+                  & (rows.scored_at < first_immature)]
     share = float((~window.labelled).mean())  # pandas
     assert share > MAX_SHARE
 

@@ -171,7 +171,9 @@ def evaluate_starvation(session: Session, model: Model, rule: AlarmRule, now: da
     mature = unlabelled = 0.0
     boundary = query.maturity_boundary(model, now)
     if boundary is not None:
-        days = query.load_days(conn, model, boundary - timedelta(days=params.window_days), boundary,
+        # The newest mature hour is the one starting at the boundary: the window ends after it.
+        end = boundary + timedelta(hours=1)
+        days = query.load_days(conn, model, end - timedelta(days=params.window_days), end,
                                segment=(ALL_SEGMENT, ALL_SEGMENT), version=None, boundary=boundary)
         counts = Summary.merge_many(list(days.mature.values())).counts()
         mature, unlabelled = sum(counts.values()), counts["unlabelled"]
