@@ -1,4 +1,4 @@
-"""Outcomes keep the observation time of their first label.
+"""Outcomes keep the observation time of their first label, indexed for the charts.
 
 Without an outcome horizon a case matures when its first outcome was
 observed; a correction must not move it. Existing rows take the earliest
@@ -30,8 +30,12 @@ def upgrade() -> None:
     )
     with op.batch_alter_table("outcomes") as batch:
         batch.alter_column("first_observed_at", existing_type=sa.DateTime(timezone=True), nullable=False)
+    op.create_index(
+        op.f("ix_outcomes_model_id_first_observed_at"), "outcomes", ["model_id", "first_observed_at"]
+    )
 
 
 def downgrade() -> None:
+    op.drop_index(op.f("ix_outcomes_model_id_first_observed_at"), "outcomes")
     with op.batch_alter_table("outcomes") as batch:
         batch.drop_column("first_observed_at")

@@ -27,6 +27,7 @@ from calibrant.models.service import require
 from calibrant.rollup.compute import SegmentBook
 from calibrant.store import alarm_repo, rollup_repo
 from calibrant.store.alarm_tables import AlarmRule, ChartStream
+from calibrant.store.mature_cases import mature_case_windows
 from calibrant.store.tables import Model
 
 MAX_FIRINGS = 1000
@@ -75,26 +76,28 @@ def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetim
     params = ChartParams.model_validate(rule.params)
     conn = session.connection()
     book = SegmentBook(list(model.segment_keys or []), rollup_repo.segment_values(conn, model.id))
-    per_stream: dict[tuple[str, str, str], list[tuple[Any, int]]] = {}
+    # Per stream only what the chart needs (p, y, maturity, id), gathered window by window.
+    per_stream: dict[tuple[str, str, str], tuple[list[float], list[float], list[float], list[str]]] = {}
     for version in alarm_repo.versions_of(conn, model.id):
-        cases = alarm_repo.mature_cases(conn, model, version, after=start, now=end)
-        for i, tags in enumerate(cases.tags):
-            if cases.label[i] < 0 or not start <= cases.matured_at[i] < end:
-                continue
-            for seg in charts._segments(tags, book):
-                per_stream.setdefault((version, *seg), []).append((cases, i))
+        for cases in mature_case_windows(conn, model, version, after=start, now=end):
+            for i, tags in enumerate(cases.tags):
+                if cases.label[i] < 0 or not start <= cases.matured_at[i] < end:
+                    continue
+                for seg in charts._segments(tags, book):
+                    ps, ys, ts, ids = per_stream.setdefault((version, *seg), ([], [], [], []))
+                    ps.append(float(cases.probability[i]))
+                    ys.append(float(cases.label[i]))
+                    ts.append(cases.matured_at[i].timestamp())
+                    ids.append(cases.case_id[i])
     n_charts = max(charts.count_streams(session, [(r, params) for r in alarm_repo.rules_of(session, model.id)
                                                   if r.enabled and r.kind == Kind.CHART]),
                    len(per_stream) * 2, 1)
     firings: list[dict[str, Any]] = []
-    for (version, key, value), items in per_stream.items():
+    for (version, key, value), (ps, ys, ts, ids) in per_stream.items():
         stream = ChartStream(rule_id=rule.id, version=version, segment_key=key, segment_value=value,
                              consumed=0, skipped_late=0, unlabelled_at_maturity=0, recent=b"", path=[],
                              updated_at=now)
-        p = np.array([c.probability[i] for c, i in items])
-        y = np.array([c.label[i] for c, i in items], dtype=np.float64)
-        t = np.array([c.matured_at[i].timestamp() for c, i in items])
-        ids = [c.case_id[i] for c, i in items]
+        p, y, t = np.array(ps), np.array(ys), np.array(ts)
         pos = 0
         while pos < p.size and len(firings) < MAX_FIRINGS:
             crossing, _ = charts.feed(stream, rule, params, p=p[pos:], y=y[pos:], times=t[pos:],

@@ -30,8 +30,8 @@ from calibrant.rollup.compute import SegmentBook
 from calibrant.stats.cusum import CusumState, advance, new_chart
 from calibrant.stats.cusum_design import arl0_for_false_alarm_budget, design_cusum
 from calibrant.store import alarm_repo, rollup_repo
-from calibrant.store.alarm_repo import MatureCases
 from calibrant.store.alarm_tables import AlarmRule, ChartStream
+from calibrant.store.mature_cases import MatureCases, mature_case_windows, outcomes_received_since
 from calibrant.store.rollup_tables import ALL_SEGMENT
 from calibrant.store.tables import Model
 
@@ -202,7 +202,12 @@ def count_streams(session: Any, rules: list[tuple[AlarmRule, ChartParams]]) -> i
 
 
 def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], now: datetime) -> ChartReport:
-    """Advance every stream of the model's enabled chart rules up to ``now``."""
+    """Advance every stream of the model's enabled chart rules up to ``now``.
+
+    Cases are read one maturity window at a time (``store.mature_cases``), so a new
+    rule on a long history holds one window's cases, not the history. The model's
+    chart count (the budget split) is the number of streams when a stream is designed.
+    """
     report = ChartReport()
     if not rules:
         return report
@@ -212,7 +217,6 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
         (r.id, (s.version, s.segment_key, s.segment_value)): s
         for r, _ in rules for s in alarm_repo.streams_of(session, r.id)
     }
-    work: list[tuple[AlarmRule, ChartParams, ChartStream, list[int], MatureCases]] = []
     for version in alarm_repo.versions_of(conn, model.id):
         mine = [s for (_, k), s in streams.items() if k[0] == version]
         has_all = all((r.id, (version, ALL_SEGMENT, ALL_SEGMENT)) in streams for r, _ in rules)
@@ -220,24 +224,35 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
         # Read from the oldest watermark of the version's streams; a rule without its
         # "all" stream yet (new rule, new version) reads the whole history.
         after = min(marks) if has_all and marks and None not in marks else None  # type: ignore[type-var]
-        cases = alarm_repo.mature_cases(conn, model, version, after=after, now=now)
         _count_late(session, model, version, streams, book, now)
-        routes: dict[StreamKey, list[int]] = {}
-        for i, tags in enumerate(cases.tags):
-            for seg in _segments(tags, book):
-                routes.setdefault((version, *seg), []).append(i)
-        for key, idx in routes.items():
-            for rule, params in rules:
-                stream = streams.get((rule.id, key))
-                if stream is None:
-                    stream = ChartStream(rule_id=rule.id, version=key[0], segment_key=key[1],
-                                         segment_value=key[2], consumed=0, skipped_late=0,
-                                         unlabelled_at_maturity=0, recent=b"", path=[], updated_at=now)
-                    session.add(stream)
-                    streams[(rule.id, key)] = stream
-                work.append((rule, params, stream, idx, cases))
+        for cases in mature_case_windows(conn, model, version, after=after, now=now):
+            _advance_window(session, version, cases, rules, streams, book, now, report)
+    session.flush()
+    return report
+
+
+def _advance_window(session: Any, version: str, cases: MatureCases,
+                    rules: list[tuple[AlarmRule, ChartParams]],
+                    streams: dict[tuple[int, StreamKey], ChartStream], book: SegmentBook, now: datetime,
+                    report: ChartReport) -> None:
+    """Route one window's cases to their streams (creating new ones) and feed each stream."""
+    routes: dict[StreamKey, list[int]] = {}
+    for i, tags in enumerate(cases.tags):
+        for seg in _segments(tags, book):
+            routes.setdefault((version, *seg), []).append(i)
+    work: list[tuple[AlarmRule, ChartParams, ChartStream, list[int]]] = []
+    for key, idx in routes.items():
+        for rule, params in rules:
+            stream = streams.get((rule.id, key))
+            if stream is None:
+                stream = ChartStream(rule_id=rule.id, version=key[0], segment_key=key[1],
+                                     segment_value=key[2], consumed=0, skipped_late=0,
+                                     unlabelled_at_maturity=0, recent=b"", path=[], updated_at=now)
+                session.add(stream)
+                streams[(rule.id, key)] = stream
+            work.append((rule, params, stream, idx))
     n_charts = len(streams)
-    for rule, params, stream, idx, cases in work:
+    for rule, params, stream, idx in work:
         fresh = [i for i in idx if stream.watermark_at is None
                  or (cases.matured_at[i], cases.case_id[i]) > (stream.watermark_at, stream.watermark_case)]
         if not fresh:
@@ -259,8 +274,6 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
         report.designs += designs
         if crossing is not None:
             report.crossings.append(crossing)
-    session.flush()
-    return report
 
 
 def _count_late(session: Any, model: Model, version: str,
@@ -270,7 +283,7 @@ def _count_late(session: Any, model: Model, version: str,
     if not mine:
         return
     since = min(s.updated_at for s in mine)
-    late = alarm_repo.outcomes_received_since(session.connection(), model, version, since)
+    late = outcomes_received_since(session.connection(), model, version, since)
     for stream in mine:
         for item in late:
             if item.received_at > stream.updated_at and (

@@ -96,6 +96,9 @@ class Outcome(Base):
     received_at: Mapped[datetime]
     revision: Mapped[int] = mapped_column(Integer, default=1)  # 1 = first label; +1 per correction
 
+    # Charts of models without a horizon read cases by this time (store.mature_cases).
+    __table_args__ = (Index(None, "model_id", "first_observed_at"),)
+
 
 class OutcomeRevision(Base):
     """Every label a case has had, oldest first: corrections never erase history."""
