@@ -146,19 +146,19 @@ def run(small: bool = False, dialects: tuple[str, ...] = ("sqlite", "postgresql"
 
 
 def format_table(results: list[dict]) -> str:
-    lines = [f"{'dialect':<11} {'path':<34} {'rows':>8} {'rows/s':>10} {'HTTP/raw':>9}"]
+    lines = [f"{'dialect':<11} {'path':<37} {'rows':>8} {'rows/s':>10} {'HTTP/raw':>9}"]
     for r in results:
         raw_name = "raw binary COPY" if r["dialect"] == "postgresql" else "raw executemany, 1 transaction"
         for batch_size in BATCH_SIZES:
             lines.append(
-                f"{r['dialect']:<11} {f'HTTP, {batch_size:,}-record batches':<34} {r['rows']:>8,} "
+                f"{r['dialect']:<11} {f'HTTP, {batch_size:,}-record batches':<37} {r['rows']:>8,} "
                 f"{r[f'http_{batch_size}_rows_per_s']:>10,.0f} {r[f'ratio_{batch_size}']:>9.2f}"
             )
         lines.append(
-            f"{r['dialect']:<11} {f'HTTP outcomes, {OUTCOME_BATCH:,}-record batches':<34} {r['rows']:>8,} "
+            f"{r['dialect']:<11} {f'HTTP outcomes, {OUTCOME_BATCH:,}-record batches':<37} {r['rows']:>8,} "
             f"{r['http_outcomes_rows_per_s']:>10,.0f} {r['ratio_outcomes']:>9.2f}"
         )
-        lines.append(f"{r['dialect']:<11} {raw_name:<34} {r['rows']:>8,} {r['raw_rows_per_s']:>10,.0f}")
+        lines.append(f"{r['dialect']:<11} {raw_name:<37} {r['rows']:>8,} {r['raw_rows_per_s']:>10,.0f}")
         agree = "agree" if r["stored_rows_agree"] else "DIFFER"
         lines.append(f"{'':<11} stored rows, HTTP vs raw: {agree} ({r['stored_rows']:,} rows each)")
     return "\n".join(lines)
