@@ -160,33 +160,35 @@ def upsert_outcomes(
     )
     current = {int(idx): (int(label), int(rev)) for idx, label, rev in existing}
     received = db_instant(conn, received_at)
-    new_rows: list[dict] = []
+    new_ids: list[str] = []
     corrections: list[dict] = []
     duplicates = 0
     for idx in range(len(batch)):
-        params = {
-            "model_id": model_id,
-            "case_id": batch.case_id[idx],
-            "label": batch.label[idx],
-            "observed_at": db_instant(conn, batch.observed_at[idx]),
-            "received_at": received,
-        }
         if idx not in current:
-            new_rows.append({**params, "revision": 1})
+            new_ids.append(batch.case_id[idx])
         elif current[idx][0] == batch.label[idx]:
             duplicates += 1  # the same label again, whatever its observed_at
         else:
-            corrections.append({**params, "revision": current[idx][1] + 1})
-    if new_rows:
-        conn.execute(
-            text(
-                "INSERT INTO outcomes "
-                "(model_id, case_id, label, observed_at, first_observed_at, received_at, revision) "
-                "VALUES (:model_id, :case_id, :label, :observed_at, :observed_at, :received_at, :revision)"
-            ),
-            new_rows,
-        )
-    if corrections:
+            corrections.append({
+                "model_id": model_id,
+                "case_id": batch.case_id[idx],
+                "label": batch.label[idx],
+                "observed_at": db_instant(conn, batch.observed_at[idx]),
+                "received_at": received,
+                "revision": current[idx][1] + 1,
+            })
+    params = {"model_id": model_id, "received_at": received}
+    if new_ids or corrections:
+        # History first, while outcomes still hold the previous labels: one row per new or
+        # changed label, set-based from staging (executemany cost ~20 µs a row on PostgreSQL).
+        conn.execute(text(
+            "INSERT INTO outcome_revisions (model_id, case_id, revision, label, observed_at, received_at) "
+            "SELECT :model_id, s.case_id, COALESCE(o.revision, 0) + 1, s.label, s.observed_at, :received_at "
+            "FROM staging_outcomes s "
+            "LEFT JOIN outcomes o ON o.model_id = :model_id AND o.case_id = s.case_id "
+            "WHERE o.case_id IS NULL OR o.label <> s.label ORDER BY s.case_id"
+        ), params)
+    if corrections:  # rare: row by row
         conn.execute(
             text(
                 "UPDATE outcomes SET label = :label, observed_at = :observed_at, "
@@ -195,23 +197,25 @@ def upsert_outcomes(
             ),
             corrections,
         )
-    history = new_rows + corrections
-    if history:
-        conn.execute(
-            text(
-                "INSERT INTO outcome_revisions "
-                "(model_id, case_id, revision, label, observed_at, received_at) "
-                "VALUES (:model_id, :case_id, :revision, :label, :observed_at, :received_at)"
-            ),
-            history,
-        )
-    if history:
-        _mark_outcome_buckets(conn, model_id, {r["case_id"] for r in history}, received_at)
+    if new_ids:
+        # "WHERE true" resolves SQLite's parsing ambiguity (see _merge_via_staging); no conflict
+        # is possible: this model's outcome batches are serialised and ids are unique per batch.
+        conn.execute(text(
+            "INSERT INTO outcomes "
+            "(model_id, case_id, label, observed_at, first_observed_at, received_at, revision) "
+            "SELECT :model_id, s.case_id, s.label, s.observed_at, s.observed_at, :received_at, 1 "
+            "FROM staging_outcomes s WHERE NOT EXISTS "
+            "(SELECT 1 FROM outcomes o WHERE o.model_id = :model_id AND o.case_id = s.case_id) "
+            "ORDER BY s.case_id"
+        ), params)
+    changed = new_ids + [r["case_id"] for r in corrections]
+    if changed:
+        _mark_outcome_buckets(conn, model_id, set(changed), received_at)
     return OutcomeWrite(
-        accepted=len(new_rows),
+        accepted=len(new_ids),
         duplicates=duplicates,
         corrected=len(corrections),
-        changed_case_ids=[r["case_id"] for r in history],
+        changed_case_ids=changed,
     )
 
 
