@@ -104,12 +104,9 @@ def run(config: scenario.ScenarioConfig, workdir: Path) -> DemoResult:
             "event_kinds": ["alarm.opened", "alarm.resolved"]})
         receiver.secret = hook["secret"]
         say(f"webhook receiver on {receiver.url}")
-        # History is backfilled outcomes first (an outcome may precede its prediction and is
-        # joined when it arrives). On SQLite, outcome ingest currently scans every stored
-        # prediction of the model per batch to mark summaries dirty, so outcomes posted after
-        # 160,000 predictions go at ~160 a second; posted first they mark nothing and go fast.
-        _post(client, "outcomes", traffic.outcomes)
+        # History is backfilled as a production system would send it: predictions, then outcomes.
         _post(client, "predictions", traffic.predictions)
+        _post(client, "outcomes", traffic.outcomes)
         say("running the jobs (POST /v1/refresh): summaries, charts, webhook delivery ...")
         jobs = client.request("POST", "/v1/refresh")["jobs"]
         say(f"  {jobs['refresh'].get('buckets', 0):,} hourly summaries, {jobs['alarms'].get('cases', 0):,} "
