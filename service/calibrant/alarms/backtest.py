@@ -22,7 +22,7 @@ from calibrant.alarms import charts, windows
 from calibrant.alarms.rules import WINDOW_KINDS, ChartParams, Kind
 from calibrant.alarms.service import ensure_defaults
 from calibrant.errors import NotFound, invalid
-from calibrant.ingest.timestamps import parse_instant
+from calibrant.ingest.timestamps import required_instant
 from calibrant.models.service import require
 from calibrant.rollup.compute import SegmentBook
 from calibrant.store import alarm_repo, rollup_repo
@@ -33,15 +33,6 @@ from calibrant.store.tables import Model
 MAX_FIRINGS = 1000
 
 
-def _instant(name: str, text: str | None) -> datetime:
-    if text is None:
-        raise invalid(name, "required: an RFC 3339 date-time with offset")
-    parsed = parse_instant(text)
-    if isinstance(parsed, str):
-        raise invalid(name, parsed)
-    return parsed
-
-
 def backtest(session: Session, model_name: str, rule_name: str, *, start: str | None, end: str | None,
              now: datetime) -> dict[str, Any]:
     model = require(session, model_name)
@@ -49,7 +40,7 @@ def backtest(session: Session, model_name: str, rule_name: str, *, start: str | 
     rule = alarm_repo.rule_named(session, model.id, rule_name)
     if rule is None:
         raise NotFound(f"model {model.name!r} has no rule {rule_name!r}")
-    lo, hi = _instant("start", start), _instant("end", end)
+    lo, hi = required_instant("start", start), required_instant("end", end)
     if hi <= lo:
         raise invalid("end", "must be after start")
     kind = Kind(rule.kind)

@@ -5,6 +5,8 @@ from __future__ import annotations
 import re
 from datetime import UTC, datetime
 
+from calibrant.errors import invalid
+
 _RFC3339 = re.compile(
     r"\d{4}-\d{2}-\d{2}[Tt ]\d{2}:\d{2}:\d{2}(?:\.\d{1,9})?(?:[Zz]|[+-]\d{2}:\d{2})"
 )
@@ -28,3 +30,13 @@ def parse_instant(text: object) -> datetime | str:
     except ValueError as exc:
         return f"is not a valid date-time ({exc})"
     return parsed.astimezone(UTC)
+
+
+def required_instant(name: str, text: str | None) -> datetime:
+    """A query parameter that must be an RFC 3339 instant; a 422 naming ``name`` otherwise."""
+    if text is None:
+        raise invalid(name, "required: an RFC 3339 date-time with offset")
+    parsed = parse_instant(text)
+    if isinstance(parsed, str):
+        raise invalid(name, parsed)
+    return parsed

@@ -10,7 +10,7 @@ from typing import Any
 from sqlalchemy.orm import Session
 
 from calibrant.errors import FieldError, InvalidInput, invalid
-from calibrant.ingest.timestamps import parse_instant
+from calibrant.ingest.timestamps import required_instant
 from calibrant.models.service import require
 from calibrant.rollup import query
 from calibrant.rollup.periods import Granularity, periods
@@ -45,15 +45,6 @@ class Selection:
     segment: tuple[str, str]
 
 
-def _instant(name: str, text: str | None) -> datetime:
-    if text is None:
-        raise invalid(name, "required: an RFC 3339 date-time with offset")
-    parsed = parse_instant(text)
-    if isinstance(parsed, str):
-        raise invalid(name, parsed)
-    return parsed
-
-
 def _segment(model: Model, tag: list[str]) -> tuple[str, str]:
     if not tag:
         return (ALL_SEGMENT, ALL_SEGMENT)
@@ -73,7 +64,7 @@ def _segment(model: Model, tag: list[str]) -> tuple[str, str]:
 
 def _selection(model: Model, start: str | None, end: str | None, version: str | None,
                tag: list[str]) -> Selection:
-    lo, hi = _instant("start", start), _instant("end", end)
+    lo, hi = required_instant("start", start), required_instant("end", end)
     if hi <= lo:
         raise invalid("end", "must be after start")
     return Selection(lo, hi, version, _segment(model, tag))

@@ -236,20 +236,8 @@ def log_loss_skill_from_sums(
     n: float, n1: float, Sl: float, *, pi0: float | None = None
 ) -> Estimate:
     """Log-loss skill 1 − LL/LL_ref from n, n1, Sl; see :func:`log_loss_skill`."""
-    if pi0 is not None and not 0.0 <= pi0 <= 1.0:
-        raise ValueError(f"pi0 must lie in [0, 1], got {pi0!r}")
-    reference = "in_window_prevalence" if pi0 is None else "fixed_pi0"
-    if n <= 0:
-        return missing(Status.UNDEFINED, _EMPTY, n=0.0, extra={"reference": reference})
-    ybar = n1 / n
-    ll_ref = _reference_log_loss(ybar, pi0)
-    extra = {"reference": reference, "log_loss": Sl / n, "log_loss_reference": ll_ref,
-             "pi0": pi0, "prevalence": ybar}
-    if not ll_ref > 0.0:
-        return missing(Status.UNDEFINED,
-                       "reference log-loss is 0 (one class in the window with π = ȳ)",
-                       n=n, extra=extra)
-    return estimate(1.0 - (Sl / n) / ll_ref, n=n, extra=extra)
+    return _skill(n, n1, Sl, pi0, "log_loss", _reference_log_loss,
+                  "reference log-loss is 0 (one class in the window with π = ȳ)")
 
 
 def log_loss_skill(
@@ -368,19 +356,30 @@ def brier_skill_score_from_sums(
     n: float, n1: float, Sse: float, *, pi0: float | None = None
 ) -> Estimate:
     """BSS = 1 − BS/BS_ref from n, n1, Σ(p − y)²; see :func:`brier_skill_score`."""
+    return _skill(n, n1, Sse, pi0, "brier", _reference_brier,
+                  "reference Brier score is 0 (one class in the window)")
+
+
+def _reference_brier(ybar: float, pi0: float | None) -> float:
+    """BS of the constant forecast: ȳ(1 − ȳ) at π = ȳ, plus (ȳ − π0)² at a fixed π0."""
+    return ybar * (1.0 - ybar) + (0.0 if pi0 is None else (ybar - pi0) ** 2)
+
+
+def _skill(n: float, n1: float, total: float, pi0: float | None, name: str,
+           reference_score, zero_reason: str) -> Estimate:
+    """1 − (total/n) / score_ref(ȳ, π0), with the reference and both scores in ``extra``."""
     if pi0 is not None and not 0.0 <= pi0 <= 1.0:
         raise ValueError(f"pi0 must lie in [0, 1], got {pi0!r}")
     reference = "in_window_prevalence" if pi0 is None else "fixed_pi0"
     if n <= 0:
         return missing(Status.UNDEFINED, _EMPTY, n=0.0, extra={"reference": reference})
     ybar = n1 / n
-    bs_ref = ybar * (1.0 - ybar) + (0.0 if pi0 is None else (ybar - pi0) ** 2)
-    extra = {"reference": reference, "brier": Sse / n, "brier_reference": bs_ref, "pi0": pi0,
+    ref = reference_score(ybar, pi0)
+    extra = {"reference": reference, name: total / n, f"{name}_reference": ref, "pi0": pi0,
              "prevalence": ybar}
-    if not bs_ref > 0.0:
-        return missing(Status.UNDEFINED, "reference Brier score is 0 (one class in the window)",
-                       n=n, extra=extra)
-    return estimate(1.0 - (Sse / n) / bs_ref, n=n, extra=extra)
+    if not ref > 0.0:
+        return missing(Status.UNDEFINED, zero_reason, n=n, extra=extra)
+    return estimate(1.0 - (total / n) / ref, n=n, extra=extra)
 
 
 def brier_skill_score(
