@@ -38,6 +38,8 @@ bench: $(STAMP)
 	$(BIN)/python tests/bench/stats.py
 	$(BIN)/python tests/bench/cusum.py
 	$(BIN)/python tests/bench/query.py
+	$(BIN)/python -m tests.bench.alarms
+	$(BIN)/python tests/bench/charts_history.py
 
 clean:
 	rm -rf $(VENV) var .pytest_cache
