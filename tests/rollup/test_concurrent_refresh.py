@@ -61,19 +61,20 @@ def test_two_overlapping_refreshers_run_every_unit_exactly_once(
     lock = threading.Lock()
     overlap = threading.Barrier(2, timeout=TIMEOUT_S)
     first_unit_done: set[int] = set()
-    real_write = refresh_module._write_bucket
+    real_write = refresh_module._write_buckets
 
-    def counting_write(engine, clock_, claim, computed):
+    def counting_write(engine, clock_, work):
         with lock:
-            executions[(claim.key, claim.generation)] += 1
-            by_worker[claim.worker].append(claim.key)
+            for claim, _ in work:
+                executions[(claim.key, claim.generation)] += 1
+                by_worker[claim.worker].append(claim.key)
             first = threading.get_ident() not in first_unit_done
             first_unit_done.add(threading.get_ident())
         if first:
-            overlap.wait()  # both threads hold a claimed, read, unwritten bucket here
-        return real_write(engine, clock_, claim, computed)
+            overlap.wait()  # both threads hold claimed, read, unwritten buckets here
+        return real_write(engine, clock_, work)
 
-    monkeypatch.setattr(refresh_module, "_write_bucket", counting_write)
+    monkeypatch.setattr(refresh_module, "_write_buckets", counting_write)
     start = threading.Barrier(2, timeout=TIMEOUT_S)
     reports: dict[str, refresh_module.RefreshReport] = {}
     errors: list[BaseException] = []
@@ -82,7 +83,7 @@ def test_two_overlapping_refreshers_run_every_unit_exactly_once(
         engine = make_engine(Settings(database_url=db.url))
         try:
             start.wait()
-            reports[worker] = refresh_module.refresh_dirty(engine, clock, worker=worker, batch=8)
+            reports[worker] = refresh_module.refresh_dirty(engine, clock, worker=worker, batch=8, group=4)
         except BaseException as exc:
             errors.append(exc)
         finally:
@@ -115,7 +116,7 @@ def test_two_overlapping_refreshers_run_every_unit_exactly_once(
     # the same summaries a single runner builds
     concurrent = stored_summaries(db)
     concurrent_days = stored_summaries(db, DaySummary)
-    monkeypatch.setattr(refresh_module, "_write_bucket", real_write)
+    monkeypatch.setattr(refresh_module, "_write_buckets", real_write)
     with db.engine.begin() as conn:
         dirty.mark(conn, (k for k, _ in units), NOW)
     single = refresh_module.refresh_dirty(db.engine, clock, worker="alone")

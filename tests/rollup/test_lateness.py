@@ -93,16 +93,16 @@ def test_rows_ingested_between_read_and_write_of_a_refresh_are_not_lost(
     clock = FixedClock(datetime(2026, 3, 10, tzinfo=UTC))
     with make_client(db, clock=clock) as client:
         post(client, "predictions", [pred("r1", 0.2)])
-        real_write = refresh_module._write_bucket
+        real_write = refresh_module._write_buckets
         injected: list[int] = []
 
-        def write_after_an_ingest(engine, clock_, claim, computed):
+        def write_after_an_ingest(engine, clock_, work):
             if not injected:  # once: the bucket's rows were read, now a new row lands in it
                 late_row = pred("r2", 0.9, "2026-03-03T09:50:00Z")
                 injected.append(post(client, "predictions", [late_row])["accepted"])
-            return real_write(engine, clock_, claim, computed)
+            return real_write(engine, clock_, work)
 
-        monkeypatch.setattr(refresh_module, "_write_bucket", write_after_an_ingest)
+        monkeypatch.setattr(refresh_module, "_write_buckets", write_after_an_ingest)
         report = refresh_module.refresh_dirty(db.engine, clock, worker="only")
         p = week(client)
     key = BucketKey(1, "default", HOUR)
@@ -127,10 +127,10 @@ def test_finish_keeps_a_mark_whose_generation_moved(db: Database) -> None:
             claim = dirty.claim(conn, key, "w1", clock.now(), timedelta(minutes=10))
         assert claim is not None
         assert claim.generation == 1
-        computed = refresh_module._read_bucket(db.engine, key, 1000)
+        (computed,) = refresh_module._read_buckets(db.engine, [key], 1000)
         assert computed.n_rows == 1
         post(client, "predictions", [pred("s2", 0.8, "2026-03-03T09:05:00Z")])
-        assert refresh_module._write_bucket(db.engine, clock, claim, computed) is False
+        assert refresh_module._write_buckets(db.engine, clock, [(claim, computed)]) == [False]
         with db.engine.connect() as conn:
             row = conn.execute(DirtyBucket.__table__.select()).mappings().one()
         assert (row["generation"], row["claimed_by"], row["claimed_until"]) == (2, None, None)

@@ -64,26 +64,36 @@ def refresh_dirty(
     *,
     worker: str,
     batch: int = 200,
+    group: int = 25,
     chunk_rows: int = 50_000,
     lease: timedelta = timedelta(minutes=10),
     max_passes: int = 1000,
 ) -> RefreshReport:
-    """Recompute dirty buckets and merge dirty days until a pass finds nothing it can claim."""
+    """Recompute dirty buckets and merge dirty days until none is left that this worker can claim.
+
+    Buckets go ``group`` at a time through three transactions (claim, read, write) instead
+    of three per bucket: on PostgreSQL the commits and round trips, not the summing, were
+    most of a refresh (10.8 ms a bucket, 45 of 94 s waiting on the server, measured).
+    """
     report = RefreshReport(worker)
     started = clock.now()
     for _ in range(max_passes):
         with engine.begin() as conn:
             keys = dirty.candidates(conn, clock.now(), batch)
         progressed = False
-        for key in keys:
-            progressed |= _recompute(engine, clock, key, worker, chunk_rows, lease, report)
+        busy_before = report.busy
+        for i in range(0, len(keys), group):
+            progressed |= _recompute_group(engine, clock, keys[i:i + group], worker, chunk_rows, lease,
+                                           report)
         with engine.begin() as conn:
             # A day is merged once its hours are current, so a full refresh merges it once.
             days = [d for d in dirty.candidates(conn, clock.now(), batch, dirty.DAYS)
                     if not dirty.hours_pending(conn, d)]
         for day in days:
             progressed |= _merge_day(engine, clock, day, worker, lease, report)
-        if not progressed:
+        # Everything this pass looked at was taken by another worker: the next candidates
+        # query skips what is claimed, so look again rather than stop.
+        if not progressed and not (keys and report.busy > busy_before):
             break
     with engine.begin() as conn:
         rollup_repo.record_job_run(
@@ -92,26 +102,29 @@ def refresh_dirty(
     return report
 
 
-def _recompute(
+def _recompute_group(
     engine: Engine,
     clock: Clock,
-    key: BucketKey,
+    keys: list[BucketKey],
     worker: str,
     chunk_rows: int,
     lease: timedelta,
     report: RefreshReport,
 ) -> bool:
-    claim = _claim(engine, clock, key, worker, lease, report)
-    if claim is None:
+    with engine.begin() as conn:
+        now = clock.now()
+        claims = [c for c in (dirty.claim(conn, k, worker, now, lease) for k in sorted(keys)) if c]
+    report.busy += len(keys) - len(claims)
+    if not claims:
         return False
-    computed = _read_bucket(engine, key, chunk_rows)
+    computed = _read_buckets(engine, [c.key for c in claims], chunk_rows)
     # No transaction is open here: on SQLite every transaction holds the write lock,
     # so ingest (and other refreshers) can run between the read and the write.
-    clean = _write_bucket(engine, clock, claim, computed)
-    report.recomputed.append((key, claim.generation))
-    report.rows_read += computed.n_rows
-    if not clean:
-        report.requeued += 1
+    clean = _write_buckets(engine, clock, list(zip(claims, computed, strict=True)))
+    for claim, done, ok in zip(claims, computed, clean, strict=True):
+        report.recomputed.append((claim.key, claim.generation))
+        report.rows_read += done.n_rows
+        report.requeued += not ok
     return True
 
 
@@ -122,27 +135,47 @@ class _Computed:
     n_rows: int
 
 
-def _read_bucket(engine: Engine, key: BucketKey, chunk_rows: int) -> _Computed:
-    """Summaries of every segment of the bucket, from its raw rows (one read transaction)."""
+def _read_buckets(engine: Engine, keys: list[BucketKey], chunk_rows: int) -> list[_Computed]:
+    """Summaries of every segment of each bucket, from raw rows, in one read transaction.
+
+    Buckets of one model share one segment book, so values are admitted (first 50 per key)
+    in the order the buckets are read, as if they were read one by one.
+    """
+    books: dict[int, SegmentBook] = {}
+    out = []
     with engine.begin() as conn:
-        keys = conn.execute(select(Model.segment_keys).where(Model.id == key.model_id)).scalar()
-        book = SegmentBook(list(keys or []), rollup_repo.segment_values(conn, key.model_id))
-        summaries, n_rows = summarise_bucket(rollup_repo.bucket_rows(conn, key, chunk_rows), book)
-    return _Computed(book, summaries, n_rows)
+        for key in keys:
+            book = books.get(key.model_id)
+            if book is None:
+                seg_keys = conn.execute(select(Model.segment_keys).where(Model.id == key.model_id)).scalar()
+                book = SegmentBook(list(seg_keys or []), rollup_repo.segment_values(conn, key.model_id))
+                books[key.model_id] = book
+            summaries, n_rows = summarise_bucket(rollup_repo.bucket_rows(conn, key, chunk_rows), book)
+            out.append(_Computed(book, summaries, n_rows))
+    return out
 
 
-def _write_bucket(engine: Engine, clock: Clock, claim: dirty.Claim, computed: _Computed) -> bool:
-    """Store the summaries and clear the mark if its generation is unchanged; True when clean."""
+def _write_buckets(engine: Engine, clock: Clock, work: list[tuple[dirty.Claim, _Computed]]) -> list[bool]:
+    """Store each bucket's summaries and clear its mark if its generation is unchanged.
+
+    One transaction; locks are taken in ascending order (segment values, then buckets by
+    key, then days) so concurrent refreshers and ingests cannot deadlock. True per clean bucket.
+    """
     now = clock.now()
-    key = claim.key
     with engine.begin() as conn:
-        for seg_key, values in computed.book.admitted.items():
-            rollup_repo.add_segment_values(conn, key.model_id, seg_key, values, now)
-        rollup_repo.replace_summaries(conn, key, _encoded(computed.summaries), now)
-        clean = dirty.finish(conn, claim)
-        # Last, so that this transaction's locks are taken in the order bucket, then day.
-        dirty.mark(conn, [DayKey(key.model_id, key.version, day_of(key.hour))], now)
-        return clean
+        admitted = sorted({(claim.key.model_id, seg_key, value)
+                           for claim, done in work for seg_key, values in done.book.admitted.items()
+                           for value in values})
+        for model_id, seg_key, value in admitted:
+            rollup_repo.add_segment_values(conn, model_id, seg_key, [value], now)
+        clean = []
+        for claim, done in sorted(work, key=lambda item: item[0].key):
+            rollup_repo.replace_summaries(conn, claim.key, _encoded(done.summaries), now)
+            clean.append((claim.key, dirty.finish(conn, claim)))
+        days = [DayKey(c.key.model_id, c.key.version, day_of(c.key.hour)) for c, _ in work]
+        dirty.mark(conn, days, now)
+    by_key = dict(clean)
+    return [by_key[claim.key] for claim, _ in work]
 
 
 def _merge_day(
