@@ -42,7 +42,7 @@ def say(text: str = "") -> None:
 
 def _post(client: Client, kind: str, items: list[dict]) -> None:
     bar = Progress(kind, len(items))
-    send = client.log_predictions if kind == "predictions" else client.log_outcomes
+    send = client.send_predictions if kind == "predictions" else client.send_outcomes
     for offset in range(0, len(items), POST_CHUNK):
         chunk = items[offset:offset + POST_CHUNK]
         send(scenario.MODEL, chunk)
@@ -101,7 +101,7 @@ def run(config: scenario.ScenarioConfig, workdir: Path) -> DemoResult:
         _keep_only_charts(client, config.days)
         hook = client.request("POST", "/v1/webhooks", json={
             "url": receiver.url, "description": "demo receiver", "model": scenario.MODEL,
-            "event_kinds": ["alarm.opened", "alarm.resolved"]})
+            "types": ["alarm.opened", "alarm.resolved"]})
         receiver.secret = hook["secret"]
         say(f"webhook receiver on {receiver.url}")
         # History is backfilled as a production system would send it: predictions, then outcomes.

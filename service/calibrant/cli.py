@@ -27,8 +27,10 @@ def _settings(**overrides: object) -> Settings:
     try:
         return Settings(**{k: v for k, v in overrides.items() if v is not None})
     except ValidationError as exc:
+        # A model-level check has no field: it is about the settings as a whole, not one variable.
         lines = [
-            f"  CALIBRANT_{'_'.join(str(p) for p in e['loc']).upper() or 'SETTINGS'}: {e['msg']}"
+            f"  CALIBRANT_{'_'.join(str(p) for p in e['loc']).upper()}: {e['msg']}" if e["loc"]
+            else f"  settings: {e['msg']}"
             for e in exc.errors()
         ]
         raise SystemExit("calibrant: invalid settings\n" + "\n".join(lines)) from None
@@ -114,7 +116,7 @@ def cmd_keys_list(args: argparse.Namespace) -> int:
     with make_session_factory(engine)() as session:
         for key in keys_repo.list_keys(session):
             state = "revoked" if key.revoked_at else "active"
-            model = key.model_name or "*"
+            model = key.model_name or "(all models)"
             print(f"{key.key_id}\t{key.scope}\t{model}\t{state}\t{key.created_at:%Y-%m-%d}\t{key.label}")
     engine.dispose()
     return 0

@@ -2,7 +2,7 @@
 
     from calibrant.client import Client
     calibrant = Client("http://127.0.0.1:8000", api_key="cal_...")
-    calibrant.log_predictions("late-delivery", [{"id": "order-1", "probability": 0.2, "scored_at": now}])
+    calibrant.send_predictions("late-delivery", [{"id": "order-1", "probability": 0.2, "scored_at": now}])
 
 Ingest is idempotent on the server (the same item again is a duplicate, never a
 second row), so a batch whose answer was lost may be sent again safely: the
@@ -136,7 +136,7 @@ class Client:
         self.close()
 
     # ------------------------------------------------------------------ ingest
-    def log_predictions(self, model: str, items: Iterable[Mapping[str, Any]]) -> dict[str, int]:
+    def send_predictions(self, model: str, items: Iterable[Mapping[str, Any]]) -> dict[str, int]:
         """Post predictions in batches; returns the summed counts (accepted, duplicates).
 
         Batches are independent transactions: if one fails, the ones before it are stored
@@ -144,7 +144,7 @@ class Client:
         """
         return self._ingest(model, "predictions", items)
 
-    def log_outcomes(self, model: str, items: Iterable[Mapping[str, Any]]) -> dict[str, int]:
+    def send_outcomes(self, model: str, items: Iterable[Mapping[str, Any]]) -> dict[str, int]:
         """Post outcomes in batches; returns the summed counts (accepted, duplicates, corrected)."""
         return self._ingest(model, "outcomes", items)
 

@@ -1,6 +1,6 @@
 """A background buffer in front of ``Client``: scoring code adds items, a thread posts them in batches.
 
-A scorer should not wait on the network for each case. ``BufferedLogger``
+A scorer should not wait on the network for each case. ``BatchingSender``
 collects predictions and outcomes and posts them when ``max_items`` are
 waiting, when the oldest has waited ``max_seconds``, on ``flush()``, and on
 ``close()`` — which the context manager and an ``atexit`` hook call, so a
@@ -38,7 +38,7 @@ def _log_failure(failure: FailedBatch) -> None:
     log.error("calibrant: %d %s not stored: %s", len(failure.items), failure.kind, failure.error)
 
 
-class BufferedLogger:
+class BatchingSender:
     """Thread-safe buffer of one model's predictions and outcomes."""
 
     def __init__(self, client: Client, model: str, *, max_items: int = 1000, max_seconds: float = 5.0,
@@ -66,17 +66,17 @@ class BufferedLogger:
             self._thread.start()
 
     # ------------------------------------------------------------------ adding
-    def log_prediction(self, item: Mapping[str, Any]) -> None:
+    def add_prediction(self, item: Mapping[str, Any]) -> None:
         self._add("predictions", item)
 
-    def log_outcome(self, item: Mapping[str, Any]) -> None:
+    def add_outcome(self, item: Mapping[str, Any]) -> None:
         self._add("outcomes", item)
 
     def _add(self, kind: str, item: Mapping[str, Any]) -> None:
         encoded = encode_item(item)
         with self._lock:
             if self._closed:
-                raise RuntimeError("this BufferedLogger is closed")
+                raise RuntimeError("this BatchingSender is closed")
             self._pending[kind].append(encoded)
             if self._oldest is None:
                 self._oldest = self._clock()
@@ -117,9 +117,9 @@ class BufferedLogger:
     def _send(self, kind: str, items: list[dict[str, Any]]) -> None:
         try:
             if kind == "predictions":
-                self.client.log_predictions(self.model, items)
+                self.client.send_predictions(self.model, items)
             else:
-                self.client.log_outcomes(self.model, items)
+                self.client.send_outcomes(self.model, items)
         except CalibrantError as exc:
             failure = FailedBatch(kind, items, exc)
             self.failures.append(failure)
@@ -146,7 +146,7 @@ class BufferedLogger:
         self.flush()
         atexit.unregister(self.close)
 
-    def __enter__(self) -> BufferedLogger:
+    def __enter__(self) -> BatchingSender:
         return self
 
     def __exit__(self, *exc: object) -> None:

@@ -33,3 +33,10 @@ class FixedClock:
 
     def set(self, instant: datetime) -> None:
         self._now = instant
+
+
+def rfc3339(at: datetime) -> str:
+    """An instant as RFC 3339 text in UTC ending in ``Z``: the one way a time leaves Calibrant."""
+    if at.tzinfo is None or at.utcoffset() is None:
+        raise ValueError("times are instants; got a naive datetime")
+    return at.astimezone(UTC).isoformat().replace("+00:00", "Z")

@@ -49,7 +49,7 @@ def test_odds_doubling_in_one_segment_alarm_outbox_resolve_restart_and_backtest(
     change_matures = T0 + timedelta(days=CHANGE_DAY + 1, hours=1)
     crossed = datetime.fromisoformat(ev["crossed_at"].replace("Z", "+00:00"))
     assert crossed >= change_matures
-    assert ev["statistic"] > ev["control_limit"] == ev["design"]["h"]
+    assert ev["statistic"] > ev["control_limit"] == ev["design"]["control_limit"]
     assert ev["design"]["n_charts"] == 6  # 2 rules x (all + north + south)
     assert ev["chart_path"][-1][1] == ev["statistic"]
     # Delay: cases of the south stream between the change and the crossing, vs the chain's ARL1.
@@ -70,8 +70,8 @@ def test_odds_doubling_in_one_segment_alarm_outbox_resolve_restart_and_backtest(
     bt = client.post("/v1/models/m/rules/calibration-chart-upper/backtest",
                      params={"start": "2026-03-01T00:00:00Z", "end": "2026-04-01T00:00:00Z"}).json()
     assert bt["sent"] == 0
-    assert bt["fired"] >= 1
-    assert any(f["segment"] == {"key": "region", "value": "south"} for f in bt["firings"])
+    assert bt["crossing_count"] >= 1
+    assert any(f["segment"] == {"key": "region", "value": "south"} for f in bt["crossings"])
     assert db.scalar("SELECT count(*) FROM outbox_events") == events_before
     assert db.scalar("SELECT count(*) FROM alarms") == len(alarms)
 
@@ -84,7 +84,7 @@ def test_odds_doubling_in_one_segment_alarm_outbox_resolve_restart_and_backtest(
     assert db.scalar("SELECT count(*) FROM outbox_events WHERE kind = 'alarm.resolved'") == 1
     rule = client.get("/v1/models/m/rules/calibration-chart-upper").json()
     stream = next(s for s in rule["streams"] if s["segment"] == {"key": "region", "value": "south"})
-    assert stream["s"] == 0.0
+    assert stream["cusum_statistic"] == 0.0
     assert stream["cases_since_reset"] == 0
     # The shift persists, so the restarted chart signals again: a second alarm on the same key.
     rng = np.random.default_rng(99)
@@ -113,7 +113,7 @@ def test_outcomes_behind_the_watermark_are_counted_as_skipped_late(db: Database)
     rule = client.get("/v1/models/late/rules/calibration-chart-upper").json()
     everything = next(s for s in rule["streams"] if s["segment"] is None)
     assert everything["consumed"] == 60
-    assert everything["unlabelled_at_maturity"] == 20
+    assert everything["unlabeled_at_maturity"] == 20
     assert everything["skipped_late"] == 20
     south = next(s for s in rule["streams"] if s["segment"] == {"key": "region", "value": "south"})
     assert south["skipped_late"] == sum(1 for i in range(40, 60) if d.region[i] == "south")

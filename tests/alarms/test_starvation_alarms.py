@@ -70,7 +70,7 @@ def test_silence_longer_than_allowed_fires_and_new_predictions_resolve(db: Datab
     assert detail["silence_hours"] == pytest.approx(silence, rel=1e-12)
     assert detail["silent"] is True
     assert detail["outcomes_missing"] is False
-    assert detail["unlabelled_share"] == 0.0
+    assert detail["unlabeled_share"] == 0.0
 
     post_day(client, "s", _recent(rng, 15, [clock.now() - timedelta(minutes=30)]), outcomes=False)
     refresh(client)
@@ -86,32 +86,32 @@ def test_mature_predictions_without_outcomes_fire_until_the_outcomes_arrive(db: 
     rng = np.random.default_rng(6)
     frames = []
     starved = {}
-    for day in (0, 1, 2, 10, 11, 12):  # days 0–2 fall outside the 7-day window and are all labelled
+    for day in (0, 1, 2, 10, 11, 12):  # days 0–2 fall outside the 7-day window and are all labeled
         d = make_day(rng, day, 40)
         post_day(client, "s", d, outcomes=False)
-        labelled = np.arange(40) if day < 3 else np.flatnonzero(rng.random(40) < 0.3)
-        post_outcomes(client, "s", d, labelled)
-        starved[day] = (d, sorted(set(range(40)) - set(labelled.tolist())))
+        labeled = np.arange(40) if day < 3 else np.flatnonzero(rng.random(40) < 0.3)
+        post_outcomes(client, "s", d, labeled)
+        starved[day] = (d, sorted(set(range(40)) - set(labeled.tolist())))
         frames.append(pd.DataFrame({"scored_at": pd.to_datetime(d.scored_at, utc=True),
-                                    "labelled": np.isin(np.arange(40), labelled)}))
+                                    "labeled": np.isin(np.arange(40), labeled)}))
     now = T0 + timedelta(days=15)
     # Fresh, still immature predictions keep the feed from being silent.
     fresh = [T0 + timedelta(days=14, hours=6 + h) for h in range(12)]
     post_day(client, "s", _recent(rng, 14, fresh), outcomes=False)
-    frames.append(pd.DataFrame({"scored_at": pd.to_datetime(fresh, utc=True), "labelled": False}))
+    frames.append(pd.DataFrame({"scored_at": pd.to_datetime(fresh, utc=True), "labeled": False}))
     # Either side of the maturity boundary: the newest mature hour (13 d 23 h) counts in the
     # window, the first immature one (14 d 00 h) does not.
     edge = [T0 + timedelta(days=13, hours=23, minutes=m) for m in (5, 35)] + \
         [T0 + timedelta(days=14, minutes=m) for m in (5, 35)]
     post_day(client, "s", _recent(rng, 13, edge), outcomes=False)
-    frames.append(pd.DataFrame({"scored_at": pd.to_datetime(edge, utc=True), "labelled": False}))
+    frames.append(pd.DataFrame({"scored_at": pd.to_datetime(edge, utc=True), "labeled": False}))
     rows = pd.concat(frames, ignore_index=True)
     # Mature: scored hour ends at least H before now; the window is the 7 days ending with the
     # newest mature hour, so it stops where the first immature hour begins.
     first_immature = pd.Timestamp(now - HORIZON)
     window = rows[(rows.scored_at >= first_immature - pd.Timedelta(WINDOW))
                   & (rows.scored_at < first_immature)]
-    share = float((~window.labelled).mean())  # pandas
+    share = float((~window.labeled).mean())  # pandas
     assert share > MAX_SHARE
 
     clock.set(now)
@@ -121,7 +121,7 @@ def test_mature_predictions_without_outcomes_fire_until_the_outcomes_arrive(db: 
     assert detail["outcomes_missing"] is True
     assert detail["silent"] is False
     assert detail["mature"] == len(window)
-    assert detail["unlabelled_share"] == pytest.approx(share, rel=1e-12)
+    assert detail["unlabeled_share"] == pytest.approx(share, rel=1e-12)
 
     for d, missing in starved.values():
         if missing:

@@ -43,9 +43,9 @@ def test_weekly_rule_fires_on_degradation_not_on_case_mix_and_resolves(db: Datab
     bt = client.post(f"/v1/models/w/rules/{RULE}/backtest",
                      params={"start": "2026-03-02T00:00:00Z", "end": "2026-03-30T00:00:00Z"})
     assert bt.status_code == 200, bt.text
-    fired = bt.json()["firings"]
-    assert {f["segment"] and f["segment"]["value"] for f in fired} <= {None, "north", "south"}
-    assert {f["at"][:10] for f in fired} == {"2026-03-23"}  # only the degraded week
+    crossings = bt.json()["crossings"]
+    assert {f["segment"] and f["segment"]["value"] for f in crossings} <= {None, "north", "south"}
+    assert {f["crossed_at"][:10] for f in crossings} == {"2026-03-23"}  # only the degraded week
     assert db.scalar("SELECT count(*) FROM alarms") == 0
     assert db.scalar("SELECT count(*) FROM outbox_events") == 0
 

@@ -71,7 +71,7 @@ def test_no_reference_gives_null_psi_with_undefined_status(posted) -> None:
     for period in weeks(client):
         assert period["n_predictions"] > 0
         assert period["psi"] is None
-        assert period["status"]["psi"]["state"] == "undefined"
+        assert period["status"]["psi"]["state"] == "no_value"
 
 
 def test_psi_against_a_traffic_range(posted) -> None:
@@ -121,4 +121,4 @@ def test_traffic_reference_with_no_rows_is_undefined(posted) -> None:
         "kind": "traffic", "start": "2025-01-01T00:00:00Z", "end": "2025-02-01T00:00:00Z"}})
     for period in weeks(client):
         assert period["psi"] is None
-        assert period["status"]["psi"]["state"] == "undefined"
+        assert period["status"]["psi"]["state"] == "no_value"

@@ -56,16 +56,16 @@ def test_register_returns_secret_once_and_manages_the_target(db: Database, recei
         assert created.status_code == 201, created.text
         body = created.json()
         assert body["secret"].startswith("whsec_")
-        assert body["event_kinds"] == ["alarm.opened", "alarm.resolved"]
+        assert body["types"] == ["alarm.opened", "alarm.resolved"]
         hook = body["id"]
         shown = client.get(f"/v1/webhooks/{hook}").json()
         assert "secret" not in shown
         assert shown["model"] == "churn"
         assert client.get("/v1/webhooks").json()["count"] == 1
 
-        changed = client.put(f"/v1/webhooks/{hook}", json={"event_kinds": ["alarm.resolved"], "model": None})
+        changed = client.put(f"/v1/webhooks/{hook}", json={"types": ["alarm.resolved"], "model": None})
         assert changed.status_code == 200
-        assert changed.json()["event_kinds"] == ["alarm.resolved"]
+        assert changed.json()["types"] == ["alarm.resolved"]
         assert changed.json()["model"] is None
         assert changed.json()["description"] == "on-call"  # absent: unchanged
 
@@ -107,8 +107,8 @@ def test_private_targets_need_the_setting(db: Database, url: str) -> None:
 def test_bad_body_fields_are_422(db: Database) -> None:
     with client_for(db, allow_private=True) as client:
         for body in (
-            {"url": "http://127.0.0.1/x", "event_kinds": ["alarm.exploded"]},
-            {"url": "http://127.0.0.1/x", "event_kinds": []},
+            {"url": "http://127.0.0.1/x", "types": ["alarm.exploded"]},
+            {"url": "http://127.0.0.1/x", "types": []},
             {"url": "http://127.0.0.1/x", "model": "Bad Name"},
             {"url": "http://127.0.0.1/x", "colour": "red"},
         ):

@@ -79,7 +79,7 @@ def main() -> None:
     v = args.weekly_volume
     level = weekly_rule.PARAMS.level
     print(f"target ARL0 {args.arl0:g} cases; {args.cases} in-control cases per chart; weekly rule: "
-          f"{args.weeks} in-control weeks of {v} cases, level {level:g}, no labelled reference")
+          f"{args.weeks} in-control weeks of {v} cases, level {level:g}, no labeled reference")
     print(f"delays: mean cases from the change (lower chart: odds halved), and weeks at {v} cases a week")
     print("| mix | rule | h / level | false alarms | expected | ratio | delay odds x2 | delay slope 0.7 |")
     print("|---|---|---|---|---|---|---|---|")

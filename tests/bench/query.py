@@ -127,7 +127,7 @@ def run(url: str, n_rows: int, hours_per_day: int = 24, repeats: int = QUERY_REP
             "full_refresh_days": len(full.merged_days),
             "incremental_days": len(incremental.merged_days),
             "periods": body["periods"],
-            "labelled_rows": int(year[0]),
+            "labeled_rows": int(year[0]),
         }
     finally:
         engine.dispose()

@@ -65,7 +65,7 @@ def compare_with_sklearn(n: int) -> dict[str, float]:
 def summary_build(n: int) -> dict[str, float]:
     """Rows per second of Summary.from_arrays, and traced peak memory vs the input size."""
     p, y = _data(n)
-    state = np.where(np.arange(n) % 5 == 0, -1, y).astype(np.int8)  # a fifth still unlabelled
+    state = np.where(np.arange(n) % 5 == 0, -1, y).astype(np.int8)  # a fifth still unlabeled
     t, _ = _timed(lambda: Summary.from_arrays(p, state), repeat=2)
     tracemalloc.start()
     Summary.from_arrays(p, state)
@@ -77,7 +77,7 @@ def summary_build(n: int) -> dict[str, float]:
 
 
 def hourly_year(hours: int = 24 * 365, rows_per_hour: int = 500, seed: int = 2) -> list[Summary]:
-    """One year of hourly summaries: traffic with a daily cycle, drifting risk, 20 % unlabelled."""
+    """One year of hourly summaries: traffic with a daily cycle, drifting risk, 20 % unlabeled."""
     rng = np.random.default_rng(seed)
     out = []
     for h in range(hours):

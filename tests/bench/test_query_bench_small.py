@@ -39,7 +39,7 @@ def test_small_query_benchmark(postgres_schema_url: str) -> None:
             rows = pd.read_sql(sa.text(
                 "SELECT p.probability, o.label, p.scored_at FROM predictions p "
                 "JOIN outcomes o ON o.model_id = p.model_id AND o.case_id = p.case_id"), conn)
-        assert len(rows) == 20_000 == result["labelled_rows"]
+        assert len(rows) == 20_000 == result["labeled_rows"]
         assert sum(p["n_predictions"] for p in periods) == 20_000
         # every week against sklearn on the rows pandas puts in it
         for period in periods:

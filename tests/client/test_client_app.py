@@ -12,7 +12,7 @@ from fastapi.testclient import TestClient
 
 from calibrant.api.app import create_app
 from calibrant.client import CalibrantRequestError, Client
-from calibrant.client_buffer import BufferedLogger
+from calibrant.client_buffer import BatchingSender
 from calibrant.config import Settings
 from calibrant.store.engine import make_engine
 
@@ -38,11 +38,11 @@ def cases(n: int) -> list[dict]:
 
 
 def test_post_repost_outcomes_and_metrics(calibrant: Client) -> None:
-    assert calibrant.log_predictions("late-delivery", cases(5)) == {"accepted": 5, "duplicates": 0}
+    assert calibrant.send_predictions("late-delivery", cases(5)) == {"accepted": 5, "duplicates": 0}
     # A batch sent again (as a retry after a lost answer would) is stored once.
-    assert calibrant.log_predictions("late-delivery", cases(5)) == {"accepted": 0, "duplicates": 5}
+    assert calibrant.send_predictions("late-delivery", cases(5)) == {"accepted": 0, "duplicates": 5}
     outcomes = [{"id": f"order-{i}", "label": i % 2, "observed_at": T0 + timedelta(days=1)} for i in range(5)]
-    answer = calibrant.log_outcomes("late-delivery", outcomes)
+    answer = calibrant.send_outcomes("late-delivery", outcomes)
     assert answer == {"accepted": 5, "duplicates": 0, "corrected": 0}
     calibrant.request("POST", "/v1/refresh")
     out = calibrant.metrics("late-delivery", T0, T0 + timedelta(days=7), granularity="week")
@@ -53,7 +53,7 @@ def test_post_repost_outcomes_and_metrics(calibrant: Client) -> None:
 
 def test_batches_larger_than_the_server_limit_are_split(calibrant: Client) -> None:
     calibrant.batch_size = 4  # small, so the split is visible without 10,000 items
-    assert calibrant.log_predictions("m", cases(10)) == {"accepted": 10, "duplicates": 0}
+    assert calibrant.send_predictions("m", cases(10)) == {"accepted": 10, "duplicates": 0}
     model = calibrant.request("GET", "/v1/models/m")
     assert model["counts"]["predictions"] == 10
 
@@ -61,7 +61,7 @@ def test_batches_larger_than_the_server_limit_are_split(calibrant: Client) -> No
 def test_an_invalid_batch_raises_with_the_servers_errors(calibrant: Client) -> None:
     bad = [*cases(2), {"id": "order-9", "probability": 1.5, "scored_at": T0}]
     with pytest.raises(CalibrantRequestError) as err:
-        calibrant.log_predictions("m", bad)
+        calibrant.send_predictions("m", bad)
     assert err.value.status == 422
     assert err.value.problem["status"] == 422
     assert {(e["index"], e["field"]) for e in err.value.errors} == {(2, "probability")}
@@ -71,10 +71,10 @@ def test_an_invalid_batch_raises_with_the_servers_errors(calibrant: Client) -> N
 
 
 def test_buffered_logger_flushes_on_close(calibrant: Client) -> None:
-    with BufferedLogger(calibrant, "m", max_items=1000, max_seconds=3600) as buffer:
+    with BatchingSender(calibrant, "m", max_items=1000, max_seconds=3600) as buffer:
         for item in cases(6):
-            buffer.log_prediction(item)
-        buffer.log_outcome({"id": "order-0", "label": 0, "observed_at": T0 + timedelta(days=1)})
+            buffer.add_prediction(item)
+        buffer.add_outcome({"id": "order-0", "label": 0, "observed_at": T0 + timedelta(days=1)})
         assert buffer.pending == 7
     assert buffer.pending == 0
     counts = calibrant.request("GET", "/v1/models/m")["counts"]
@@ -83,9 +83,9 @@ def test_buffered_logger_flushes_on_close(calibrant: Client) -> None:
 
 def test_buffered_logger_keeps_a_refused_batch(calibrant: Client) -> None:
     seen = []
-    buffer = BufferedLogger(calibrant, "m", max_items=10, max_seconds=3600, on_error=seen.append,
+    buffer = BatchingSender(calibrant, "m", max_items=10, max_seconds=3600, on_error=seen.append,
                             background=False)
-    buffer.log_prediction({"id": "x", "probability": 2.0, "scored_at": T0})
+    buffer.add_prediction({"id": "x", "probability": 2.0, "scored_at": T0})
     buffer.flush()
     assert len(buffer.failures) == 1
     assert seen == buffer.failures

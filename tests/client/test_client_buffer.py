@@ -1,4 +1,4 @@
-"""BufferedLogger: flush on size, on time (injected clock, and the real thread), on close; thread safety."""
+"""BatchingSender: flush on size, on time (injected clock, and the real thread), on close; thread safety."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import httpx
 import pytest
 
 from calibrant.client import Client
-from calibrant.client_buffer import BufferedLogger
+from calibrant.client_buffer import BatchingSender
 
 T = datetime(2026, 11, 2, tzinfo=UTC)
 
@@ -44,12 +44,12 @@ def item(i: int) -> dict:
 def test_size_and_time_flushes_with_an_injected_clock() -> None:
     rec = Recorder()
     now = [100.0]
-    buffer = BufferedLogger(client(rec), "m", max_items=3, max_seconds=10, clock=lambda: now[0],
+    buffer = BatchingSender(client(rec), "m", max_items=3, max_seconds=10, clock=lambda: now[0],
                             background=False)
     for i in range(3):
-        buffer.log_prediction(item(i))
+        buffer.add_prediction(item(i))
     assert rec.batches == [("predictions", ["c0", "c1", "c2"])]  # full: sent at once
-    buffer.log_prediction(item(3))
+    buffer.add_prediction(item(3))
     now[0] += 9.9
     assert buffer.flush_if_due() is False
     now[0] += 0.1
@@ -61,8 +61,8 @@ def test_size_and_time_flushes_with_an_injected_clock() -> None:
 
 def test_background_thread_flushes_by_time() -> None:
     rec = Recorder()
-    with BufferedLogger(client(rec), "m", max_items=1000, max_seconds=0.2) as buffer:
-        buffer.log_prediction(item(1))
+    with BatchingSender(client(rec), "m", max_items=1000, max_seconds=0.2) as buffer:
+        buffer.add_prediction(item(1))
         deadline = time.monotonic() + 10
         while not rec.batches and time.monotonic() < deadline:
             time.sleep(0.01)
@@ -70,20 +70,20 @@ def test_background_thread_flushes_by_time() -> None:
 
 
 def test_naive_time_is_refused_when_added() -> None:
-    buffer = BufferedLogger(client(Recorder()), "m", background=False)
+    buffer = BatchingSender(client(Recorder()), "m", background=False)
     with pytest.raises(ValueError, match="naive"):
-        buffer.log_prediction({"id": "a", "probability": 0.1, "scored_at": datetime(2026, 1, 1)})
+        buffer.add_prediction({"id": "a", "probability": 0.1, "scored_at": datetime(2026, 1, 1)})
     assert buffer.pending == 0
     buffer.close()
 
 
 def test_many_threads_lose_and_repeat_nothing() -> None:
     rec = Recorder()
-    buffer = BufferedLogger(client(rec), "m", max_items=50, max_seconds=0.05)
+    buffer = BatchingSender(client(rec), "m", max_items=50, max_seconds=0.05)
 
     def work(t: int) -> None:
         for i in range(500):
-            buffer.log_prediction(item(t * 1000 + i))
+            buffer.add_prediction(item(t * 1000 + i))
 
     threads = [threading.Thread(target=work, args=(t,)) for t in range(8)]
     for th in threads:
@@ -95,4 +95,4 @@ def test_many_threads_lose_and_repeat_nothing() -> None:
     assert len(ids) == 4000
     assert len(set(ids)) == 4000
     with pytest.raises(RuntimeError, match="closed"):
-        buffer.log_prediction(item(0))
+        buffer.add_prediction(item(0))

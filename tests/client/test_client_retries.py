@@ -52,7 +52,7 @@ def test_transient_failures_are_retried_with_growing_bounded_backoff() -> None:
     script = Script(httpx.ConnectError("refused"), httpx.ReadTimeout("slow"), httpx.Response(502),
                     httpx.Response(504), httpx.Response(200, json={"accepted": 0, "duplicates": 1}))
     client, slept = make(script, backoff_base=0.5, backoff_max=1.5)
-    assert client.log_predictions("m", [pred(1)]) == {"accepted": 0, "duplicates": 1}
+    assert client.send_predictions("m", [pred(1)]) == {"accepted": 0, "duplicates": 1}
     assert len(script.requests) == 5
     assert slept == [0.5, 1.0, 1.5, 1.5]  # doubling, capped at backoff_max
     # Every attempt sent the very same batch: safe, because the server treats it as duplicates.
@@ -66,7 +66,7 @@ def test_retry_after_is_honoured_in_seconds_and_as_an_http_date() -> None:
                     httpx.Response(503, headers={"Retry-After": date}),
                     httpx.Response(200, json={"accepted": 1}))
     client, slept = make(script)
-    client.log_predictions("m", [pred(1)])
+    client.send_predictions("m", [pred(1)])
     assert slept == [12.0, 7.0]
 
 
@@ -74,7 +74,7 @@ def test_retry_after_beyond_the_limit_gives_up_at_once() -> None:
     script = Script(httpx.Response(503, headers={"Retry-After": "3600"}))
     client, slept = make(script, max_retry_after=60)
     with pytest.raises(CalibrantUnavailableError) as err:
-        client.log_predictions("m", [pred(1)])
+        client.send_predictions("m", [pred(1)])
     assert err.value.status == 503
     assert slept == []
     assert len(script.requests) == 1
@@ -84,7 +84,7 @@ def test_retries_are_bounded_then_the_failure_is_raised() -> None:
     script = Script(*[httpx.ConnectError("refused")] * 10)
     client, slept = make(script, max_retries=3)
     with pytest.raises(CalibrantUnavailableError) as err:
-        client.log_outcomes("m", [{"id": "c1", "label": 1, "observed_at": T}])
+        client.send_outcomes("m", [{"id": "c1", "label": 1, "observed_at": T}])
     assert err.value.attempts == 4
     assert err.value.status is None
     assert len(script.requests) == 4
@@ -95,7 +95,7 @@ def test_a_500_is_not_retried() -> None:
     script = Script(httpx.Response(500, json={"title": "Internal error", "detail": "logged", "status": 500}))
     client, _ = make(script)
     with pytest.raises(CalibrantUnavailableError) as err:
-        client.log_predictions("m", [pred(1)])
+        client.send_predictions("m", [pred(1)])
     assert err.value.status == 500
     assert len(script.requests) == 1
 
@@ -107,7 +107,7 @@ def test_a_4xx_raises_with_the_problem_document_and_is_not_retried() -> None:
     script = Script(httpx.Response(422, json=problem, headers={"content-type": "application/problem+json"}))
     client, slept = make(script)
     with pytest.raises(CalibrantRequestError) as err:
-        client.log_predictions("m", [pred(1)])
+        client.send_predictions("m", [pred(1)])
     assert err.value.status == 422
     assert err.value.problem == problem
     assert err.value.errors == problem["errors"]
@@ -119,7 +119,7 @@ def test_a_4xx_raises_with_the_problem_document_and_is_not_retried() -> None:
 def test_batches_are_split_at_the_batch_size_and_counts_summed() -> None:
     script = Script(*[httpx.Response(200, json={"accepted": 2, "duplicates": 1})] * 3)
     client, _ = make(script, batch_size=3)
-    totals = client.log_predictions("m", [pred(i) for i in range(7)])
+    totals = client.send_predictions("m", [pred(i) for i in range(7)])
     assert [len(b["predictions"]) for b in script.bodies()] == [3, 3, 1]
     assert totals == {"accepted": 6, "duplicates": 3}
     assert [p["id"] for b in script.bodies() for p in b["predictions"]] == [f"c{i}" for i in range(7)]
@@ -130,7 +130,7 @@ def test_a_failing_later_batch_says_how_many_items_were_stored() -> None:
                     httpx.Response(409, json={"title": "Conflict", "detail": "c3 differs", "status": 409}))
     client, _ = make(script, batch_size=2)
     with pytest.raises(CalibrantRequestError) as err:
-        client.log_predictions("m", [pred(i) for i in range(4)])
+        client.send_predictions("m", [pred(i) for i in range(4)])
     assert err.value.status == 409
     assert any("starting at item 2" in note for note in err.value.__notes__)
 
@@ -139,11 +139,11 @@ def test_datetimes_are_sent_with_their_offset_and_naive_ones_refused_before_send
     script = Script()
     client, _ = make(script)
     plus_one = datetime(2026, 11, 2, 9, 15, tzinfo=timezone(timedelta(hours=1)))
-    client.log_predictions("m", [{"id": "a", "probability": 0.5, "scored_at": plus_one}])
+    client.send_predictions("m", [{"id": "a", "probability": 0.5, "scored_at": plus_one}])
     assert script.bodies()[0]["predictions"][0]["scored_at"] == "2026-11-02T09:15:00+01:00"
     naive = {"id": "b", "probability": 0.5, "scored_at": datetime(2026, 1, 1)}
     with pytest.raises(ValueError, match="naive"):
-        client.log_predictions("m", [pred(1), naive])
+        client.send_predictions("m", [pred(1), naive])
     assert len(script.requests) == 1  # nothing of the refused call was sent
 
 

@@ -29,7 +29,7 @@ def add_target(
     now: datetime,
     *,
     model: str | None = None,
-    kinds: tuple[str, ...] = payloads.SUBSCRIBABLE_KINDS,
+    kinds: tuple[str, ...] = payloads.SUBSCRIBABLE_TYPES,
 ) -> tuple[int, str]:
     with sessions() as session:
         target, secret = registry.register(
@@ -37,7 +37,7 @@ def add_target(
             url=url,
             description="test receiver",
             model=model,
-            event_kinds=list(kinds),
+            event_types=list(kinds),
             allow_private=True,
             resolver=loopback_resolver,
             now=now,

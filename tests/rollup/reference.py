@@ -56,16 +56,16 @@ def close(actual: Any, expected: float, rel: float = EXACT, name: str = "") -> N
 def assert_period_matches(period: dict, rows: pd.DataFrame, *, check_glm: bool = True) -> None:
     """Every listed key of one API period against its rows (all scored rows; no horizon set)."""
     n = len(rows)
-    labelled = rows.dropna(subset=["label"])
-    y = labelled.label.to_numpy().astype(int)
-    p = labelled.probability.to_numpy()
+    labeled = rows.dropna(subset=["label"])
+    y = labeled.label.to_numpy().astype(int)
+    p = labeled.probability.to_numpy()
     assert period["n_predictions"] == n  # pandas len
-    assert period["n_labeled"] == len(labelled)  # pandas dropna
+    assert period["n_labeled"] == len(labeled)  # pandas dropna
     assert period["n_immature"] == 0  # no horizon: nothing is immature
     if n == 0:
         assert_empty(period)
         return
-    close(period["label_coverage"], len(labelled) / n, name="label_coverage")
+    close(period["label_coverage"], len(labeled) / n, name="label_coverage")
     close(period["mean_probability"], float(np.mean(rows.probability)), name="mean_probability")  # numpy
     close(period["observed_rate"], float(np.mean(y)), name="observed_rate")  # numpy
     close(period["oe_ratio"], float(y.sum() / p.sum()), name="oe_ratio")  # numpy: Σy/Σp
@@ -80,7 +80,7 @@ def assert_period_matches(period: dict, rows: pd.DataFrame, *, check_glm: bool =
     if min(y.sum(), (1 - y).sum()) < MIN_EVENTS_SLOPE:
         # METHODS 3: no slope from fewer than 20 events or non-events
         assert period["calibration_slope"] is None
-        assert period["status"]["calibration_slope"]["state"] == "insufficient_data"
+        assert period["status"]["calibration_slope"]["state"] == "too_few_cases"
     elif check_glm:
         x = np.log(p / (1 - p))
         # statsmodels Logit on [1, logit p]: the calibration slope (Cox 1958)
@@ -118,7 +118,7 @@ def assert_empty(period: dict) -> None:
     for key in ("label_coverage", "mean_probability", "observed_rate", "oe_ratio", "log_loss",
                 "brier", "calibration_intercept", "calibration_slope", "auc", "ece", "psi"):
         assert period[key] is None, key
-        assert period["status"][key]["state"] in {"undefined", "insufficient_data"}, key
+        assert period["status"][key]["state"] in {"no_value", "too_few_cases"}, key
         assert period["status"][key]["reason"], key
     assert period["log_loss_ci"] is None
 

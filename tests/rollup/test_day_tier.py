@@ -103,12 +103,12 @@ def test_a_late_outcome_reaches_the_day_tier_after_the_next_refresh(db: Database
         assert r.status_code == 200, r.text
         refresh(client)
         after = metrics(client, MODEL, **week)["periods"][0]
-    labelled = frame.dropna(subset=["label"])
-    held_back = labelled[labelled.id != late.id]
+    labeled = frame.dropna(subset=["label"])
+    held_back = labeled[labeled.id != late.id]
     assert before["n_labeled"] == len(held_back)
-    assert after["n_labeled"] == len(labelled)
-    # scikit-learn's log_loss on every labelled row of the week, the late one included
-    expected = log_loss(labelled.label.to_numpy(), labelled.probability.to_numpy(), labels=[0, 1])
+    assert after["n_labeled"] == len(labeled)
+    # scikit-learn's log_loss on every labeled row of the week, the late one included
+    expected = log_loss(labeled.label.to_numpy(), labeled.probability.to_numpy(), labels=[0, 1])
     assert np.isclose(after["log_loss"], expected, rtol=1e-12)
 
 
@@ -136,7 +136,7 @@ def test_maturity_boundary_inside_a_day_splits_that_day_by_hour(db: Database) ->
         assert period["n_immature"] == young, i
         mature = rows[bucket_end[rows.index] <= pd.Timestamp(boundary_end)].dropna(subset=["label"])
         if len(mature) and mature.label.nunique() == 2:
-            # scikit-learn on the day's mature labelled rows
+            # scikit-learn on the day's mature labeled rows
             expected = log_loss(mature.label.to_numpy(), mature.probability.to_numpy(), labels=[0, 1])
             assert np.isclose(period["log_loss"], expected, rtol=1e-12), i
     # The cut really falls inside day 4: some of its rows are mature and some are not.

@@ -76,13 +76,13 @@ def test_period_matures_as_the_clock_moves_without_recomputation(db: Database, s
     assert p["mean_probability"] == pytest.approx((0.2 + 0.4 + 0.5 + 0.8) / 4)  # 0.475, all rows
     for key in ("observed_rate", "log_loss", "brier", "oe_ratio"):
         assert p[key] is None
-        assert p["status"][key]["state"] == "insufficient_data"
+        assert p["status"][key]["state"] == "too_few_cases"
 
     assert backlog(db) == 0  # time passing needs no refresh: nothing is marked
     clock.set(FIRST_MATURE)  # exactly bucket end + H + L: mature ("≤ now")
     p = week(client)
     assert (p["n_predictions"], p["n_immature"], p["n_labeled"]) == (4, 1, 3)
-    # mature and labelled: a (0.2, y=1), b (0.4, y=0); c has no outcome and is left out
+    # mature and labeled: a (0.2, y=1), b (0.4, y=0); c has no outcome and is left out
     assert p["observed_rate"] == pytest.approx(1 / 2)
     assert p["oe_ratio"] == pytest.approx(1 / (0.2 + 0.4))  # 1.6667
     assert p["brier"] == pytest.approx(((0.2 - 1) ** 2 + 0.4**2) / 2)  # (0.64 + 0.16)/2 = 0.4
@@ -100,7 +100,7 @@ def test_period_matures_as_the_clock_moves_without_recomputation(db: Database, s
     assert backlog(db) == 0
 
 
-def test_implicit_negatives_count_mature_unlabelled_rows_as_zero(db: Database, setup) -> None:
+def test_implicit_negatives_count_mature_unlabeled_rows_as_zero(db: Database, setup) -> None:
     client, clock = setup
     r = client.put(f"/v1/models/{MODEL}", json={"implicit_negatives": True})
     assert r.status_code == 200, r.text
@@ -134,6 +134,6 @@ def test_without_horizon_everything_counts_at_once(db: Database) -> None:
         client.post(f"/v1/models/{MODEL}/outcomes", json={"outcomes": OUTCOMES})
         refresh(client)
         p = week(client)
-    # no horizon: nothing is immature; labelled a, b, d → observed 2/3
+    # no horizon: nothing is immature; labeled a, b, d → observed 2/3
     assert p["n_immature"] == 0
     assert p["observed_rate"] == pytest.approx(2 / 3)

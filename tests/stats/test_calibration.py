@@ -26,10 +26,10 @@ def test_observed_expected(name: str) -> None:
 
 
 def test_observed_expected_edges() -> None:
-    assert cal.observed_expected([], []).status is Status.UNDEFINED
-    assert cal.observed_expected([0, 1], [0.0, 0.0]).status is Status.UNDEFINED  # E = 0
+    assert cal.observed_expected([], []).status is Status.NO_VALUE
+    assert cal.observed_expected([0, 1], [0.0, 0.0]).status is Status.NO_VALUE  # E = 0
     r = cal.observed_expected([0, 0], [0.2, 0.3])  # O = 0: value, no log-scale interval
-    assert r.ok
+    assert r.measured
     assert r.value == 0.0
     assert r.ci is None
     assert r.reason
@@ -64,9 +64,9 @@ def test_spiegelhalter_published_example() -> None:
 
 def test_spiegelhalter_all_half_undefined() -> None:
     z = cal.spiegelhalter_z([0, 1, 1], [0.5, 0.5, 0.5])
-    assert z.status is Status.UNDEFINED
+    assert z.status is Status.NO_VALUE
     assert z.value is None
-    assert cal.spiegelhalter_z([], []).status is Status.UNDEFINED
+    assert cal.spiegelhalter_z([], []).status is Status.NO_VALUE
 
 
 @pytest.mark.parametrize("name", DATASETS)
@@ -91,8 +91,8 @@ def test_hosmer_lemeshow_check_values(name: str) -> None:
 def test_hosmer_lemeshow_floors() -> None:
     p, y = dataset("synthetic")
     h = cal.hosmer_lemeshow(y, p)  # lowest decile has 9.2 expected events < 10
-    assert h.status is Status.INSUFFICIENT_DATA
+    assert h.status is Status.TOO_FEW_CASES
     assert h.statistic is None
     assert h.min_expected == pytest.approx(9.1824, rel=1e-4)
-    assert cal.hosmer_lemeshow([], []).status is Status.UNDEFINED
-    assert cal.hosmer_lemeshow([0, 1], [0.2, 0.4]).status is Status.INSUFFICIENT_DATA
+    assert cal.hosmer_lemeshow([], []).status is Status.NO_VALUE
+    assert cal.hosmer_lemeshow([0, 1], [0.2, 0.4]).status is Status.TOO_FEW_CASES

@@ -50,8 +50,8 @@ def test_ece_edge_convention_rounded_scores() -> None:
 
 
 def test_ece_edges() -> None:
-    assert ce.expected_calibration_error([], []).status is Status.UNDEFINED
-    assert ce.maximum_calibration_error([], []).status is Status.UNDEFINED
+    assert ce.expected_calibration_error([], []).status is Status.NO_VALUE
+    assert ce.maximum_calibration_error([], []).status is Status.NO_VALUE
     one = ce.expected_calibration_error([0, 0], [0.1, 0.3])
     assert one.value == pytest.approx(0.2, rel=1e-12)
     with pytest.raises(ValueError, match="strategy"):
@@ -86,15 +86,15 @@ def test_ici_check_values() -> None:
 def test_ici_floor() -> None:
     p, y = dataset("breast_cancer")  # 107 events, 64 non-events < 200
     r = ce.integrated_calibration_index(y, p)
-    assert r.status is Status.INSUFFICIENT_DATA
+    assert r.status is Status.TOO_FEW_CASES
     assert r.ici is None
     forced = ce.integrated_calibration_index(y, p, min_events=0)
     v = ref("breast_cancer_test", "ici_lowess_local_linear")
     # source: METHODS.md 10 breast-cancer `ici_lowess_local_linear` (statsmodels)
     assert forced.ici == pytest.approx(v["ICI"], rel=1e-8)
     assert forced.emax == pytest.approx(v["Emax"], rel=1e-8)
-    assert ce.integrated_calibration_index([0, 0], [0.1, 0.2]).status is Status.UNDEFINED
-    assert ce.integrated_calibration_index([], []).status is Status.UNDEFINED
+    assert ce.integrated_calibration_index([0, 0], [0.1, 0.2]).status is Status.NO_VALUE
+    assert ce.integrated_calibration_index([], []).status is Status.NO_VALUE
 
 
 def test_weighted_lowess_equals_repeated_rows() -> None:

@@ -29,9 +29,9 @@ def test_murphy_check_values(name: str) -> None:
 
 
 def test_murphy_edge_cases() -> None:
-    assert murphy_decomposition([], []).status is Status.UNDEFINED
+    assert murphy_decomposition([], []).status is Status.NO_VALUE
     one = murphy_decomposition([0, 0, 0], [0.1, 0.15, 0.9])
-    assert one.ok
+    assert one.measured
     assert one.uncertainty == 0.0
     assert one.brier == pytest.approx(brier_score_loss([0, 0, 0], [0.1, 0.15, 0.9]), rel=1e-12)
     # p exactly on an edge: left-closed puts 0.2 in [0.2, 0.3); right-closed in (0.1, 0.2]

@@ -49,11 +49,11 @@ def test_auc_weighted_matches_sklearn() -> None:
 
 def test_auc_edges() -> None:
     r = disc.roc_auc([0, 0, 0], [0.1, 0.2, 0.3])
-    assert r.status is Status.UNDEFINED  # never 0.5
+    assert r.status is Status.NO_VALUE  # never 0.5
     assert r.value is None
-    assert disc.roc_auc([], []).status is Status.UNDEFINED
+    assert disc.roc_auc([], []).status is Status.NO_VALUE
     small = disc.roc_auc([0, 1, 0, 1], [0.1, 0.9, 0.3, 0.4])
-    assert small.ok
+    assert small.measured
     assert small.value == 1.0
     assert small.ci is None  # interval withheld below 20 per class
     perfect = disc.roc_auc(np.r_[np.zeros(30), np.ones(30)], np.linspace(0.01, 0.99, 60))
@@ -88,5 +88,5 @@ def test_average_precision_no_events_undefined() -> None:
     assert ref("edge_cases", "all_negative_window_behaviour")[
         "average_precision_score"]["result"] == 0
     r = disc.average_precision([0, 0, 0], [0.1, 0.2, 0.3])
-    assert r.status is Status.UNDEFINED
+    assert r.status is Status.NO_VALUE
     assert r.value is None

@@ -47,8 +47,8 @@ def test_psi_breast_cancer_and_counts() -> None:
 
 def test_psi_edges() -> None:
     r = drift.psi_from_counts([10, 0], [5, 5], smoothing=0)
-    assert r.status is Status.UNDEFINED  # infinite without smoothing
-    assert drift.psi_from_counts([0, 0], [5, 5]).status is Status.UNDEFINED
+    assert r.status is Status.NO_VALUE  # infinite without smoothing
+    assert drift.psi_from_counts([0, 0], [5, 5]).status is Status.NO_VALUE
     assert drift.psi_from_counts([3, 0], [3, 0], smoothing=0).value == 0.0
     with pytest.raises(ValueError, match="reference is empty"):
         drift.psi([], [0.1])
@@ -83,7 +83,7 @@ def test_ks_weighted_and_counts() -> None:
     edges = drift.reference_bin_edges(p_ref, n_bins=50)
     lb = drift.ks_from_counts(drift.histogram(p_ref, edges), drift.histogram(p, edges))
     assert lb.value <= drift.ks_2samp(p_ref, p).value + 1e-12  # a lower bound (METHODS 6.3)
-    assert drift.ks_2samp([], [0.2]).status is Status.UNDEFINED
+    assert drift.ks_2samp([], [0.2]).status is Status.NO_VALUE
 
 
 def test_js_distance() -> None:
@@ -101,4 +101,4 @@ def test_js_distance() -> None:
     assert drift.js_distance(p_tr, pb, smoothing=0.5).value == pytest.approx(
         ref(BC, "js_distance_base2"), rel=1e-12)
     assert drift.js_distance_from_counts([5, 0], [5, 0]).value == 0.0
-    assert drift.js_distance_from_counts([0, 0], [5, 0]).status is Status.UNDEFINED
+    assert drift.js_distance_from_counts([0, 0], [5, 0]).status is Status.NO_VALUE

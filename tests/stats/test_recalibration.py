@@ -88,21 +88,21 @@ def test_separated_window_is_insufficient_not_huge() -> None:
         fit = sm.Logit(ys, sm.add_constant(logit(ps))).fit(disp=0)
     assert fit.bse[1] > 1e4
     r = rc.logistic_recalibration(ys, ps, min_events=1)
-    assert r.slope.status is Status.INSUFFICIENT_DATA
+    assert r.slope.status is Status.TOO_FEW_CASES
     assert r.slope.value is None
     assert "separated" in r.slope.reason
     # the default floor (20 events and 20 non-events, METHODS.md 9) catches it first
-    assert rc.calibration_slope(ys, ps).status is Status.INSUFFICIENT_DATA
+    assert rc.calibration_slope(ys, ps).status is Status.TOO_FEW_CASES
     # large separated window: passes the floor, still insufficient
     big_p = np.r_[np.linspace(0.01, 0.4, 50), np.linspace(0.6, 0.99, 50)]
     big_y = np.r_[np.zeros(50), np.ones(50)]
-    assert rc.calibration_slope(big_y, big_p).status is Status.INSUFFICIENT_DATA
+    assert rc.calibration_slope(big_y, big_p).status is Status.TOO_FEW_CASES
 
 
 def test_one_class_and_empty() -> None:
     for y, p in (([], []), ([0, 0, 0], [0.1, 0.2, 0.3]), ([1, 1], [0.5, 0.9])):
-        assert rc.calibration_intercept(y, p).status is Status.UNDEFINED
-        assert rc.calibration_slope(y, p).status is Status.UNDEFINED
+        assert rc.calibration_intercept(y, p).status is Status.NO_VALUE
+        assert rc.calibration_slope(y, p).status is Status.NO_VALUE
         t = rc.recalibration_tests(y, p)
         assert t.joint.value is None
 

@@ -118,7 +118,7 @@ def test_edge_one_class_window() -> None:
     assert sc.brier_score(y, p).value == pytest.approx(beh["brier_score_loss"]["result"],
                                                        rel=1e-12)
     for r in (sc.log_loss_skill(y, p), sc.brier_skill_score(y, p)):
-        assert r.status is Status.UNDEFINED
+        assert r.status is Status.NO_VALUE
         assert r.value is None
         assert r.reason
 
@@ -127,12 +127,12 @@ def test_edge_empty_and_constant_half() -> None:
     for f in (sc.log_loss, sc.brier_score, sc.log_loss_skill, sc.brier_skill_score,
               sc.log_loss_calibration_z):
         r = f([], [])
-        assert r.status is Status.UNDEFINED
+        assert r.status is Status.NO_VALUE
         assert r.value is None
     half = np.full(10, 0.5)
     y = np.array([0, 1] * 5)
     z = sc.log_loss_calibration_z(y, half)
-    assert z.status is Status.UNDEFINED  # Var0 = 0 when every p is 1/2
+    assert z.status is Status.NO_VALUE  # Var0 = 0 when every p is 1/2
     ll = sc.log_loss(y, half)
     assert ll.value == pytest.approx(math.log(2), rel=1e-15)
     assert ll.se == 0.0  # constant loss: the variance is clamped at 0, never negative/NaN
@@ -179,5 +179,5 @@ def test_log_loss_with_weights_matches_sklearn() -> None:
 def test_logit_input_not_needed_for_extremes() -> None:
     # p within float64 of 1 for an event: clipped at 1 - eps, loss ~ eps, never NaN
     r = sc.log_loss([1, 0], [1.0, float(expit(-40))])
-    assert r.ok
+    assert r.measured
     assert r.value < 1e-15

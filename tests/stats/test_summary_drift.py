@@ -73,7 +73,7 @@ def test_frozen_bins_reused_and_edge_cases() -> None:
     assert same.psi.value == pytest.approx(0.0, abs=1e-15)
     assert same.ks.value == pytest.approx(0.0, abs=1e-15)
     empty = score_drift(Summary.empty(), refs)
-    assert empty.psi.status is Status.UNDEFINED
-    assert empty.ks.status is Status.UNDEFINED
+    assert empty.psi.status is Status.NO_VALUE
+    assert empty.ks.status is Status.NO_VALUE
     with pytest.raises(ValueError, match="empty"):
         frozen_bins(Summary.empty())

@@ -71,15 +71,15 @@ def test_bytes_round_trip_exact_and_empty_is_identity(r) -> None:
 
 @settings(max_examples=60, deadline=None)
 @given(rows())
-def test_unlabelled_as_negative_equals_labelled_zero(r) -> None:
+def test_unlabeled_as_negative_equals_labeled_zero(r) -> None:
     p, s = r
-    implicit = Summary.from_arrays(p, s).labelled(True)
-    relabelled = Summary.from_arrays(p, np.where(s == -1, 0, s)).labelled(False)
-    np.testing.assert_array_equal(implicit.bins, relabelled.bins)
-    np.testing.assert_allclose(implicit.neg, relabelled.neg, rtol=1e-12, atol=1e-300)
-    np.testing.assert_allclose(implicit.pos, relabelled.pos, rtol=1e-12, atol=1e-300)
-    dropped = Summary.from_arrays(p[s != -1], s[s != -1]).labelled(False)
-    np.testing.assert_allclose(Summary.from_arrays(p, s).labelled(False).neg.sum(axis=0),
+    implicit = Summary.from_arrays(p, s).labeled(True)
+    relabeled = Summary.from_arrays(p, np.where(s == -1, 0, s)).labeled(False)
+    np.testing.assert_array_equal(implicit.bins, relabeled.bins)
+    np.testing.assert_allclose(implicit.neg, relabeled.neg, rtol=1e-12, atol=1e-300)
+    np.testing.assert_allclose(implicit.pos, relabeled.pos, rtol=1e-12, atol=1e-300)
+    dropped = Summary.from_arrays(p[s != -1], s[s != -1]).labeled(False)
+    np.testing.assert_allclose(Summary.from_arrays(p, s).labeled(False).neg.sum(axis=0),
                                dropped.neg.sum(axis=0), rtol=1e-12, atol=1e-300)
 
 
@@ -99,12 +99,12 @@ def test_summary_statistics_equal_array_statistics(r) -> None:
     p, s = r
     lab = s != -1
     y, q = s[lab], p[lab]
-    v = Summary.from_arrays(p, s).labelled(False)
+    v = Summary.from_arrays(p, s).labeled(False)
     pairs = [(sm_.log_loss(v), sc.log_loss(y, q)), (sm_.brier(v), sc.brier_score(y, q)),
              (sm_.observed_expected(v), cal.observed_expected(y, q))]
     if np.all(np.isin(q, (0.0, 0.5, 1.0))):
         # null variance Σ(1 − 2p)²p(1 − p) is exactly 0: undefined (METHODS.md 4.1 edge case)
-        assert sm_.spiegelhalter_z(v).status is Status.UNDEFINED
+        assert sm_.spiegelhalter_z(v).status is Status.NO_VALUE
     elif np.all((q > 1e-6) & (q < 1 - 1e-6)):
         # the power-sum variance Σ(p − 5p² + 8p³ − 4p⁴) cancels to absolute error ~ε·Σp, so
         # windows made only of p within 1e-6 of 0 or 1 lose relative precision there
@@ -114,7 +114,7 @@ def test_summary_statistics_equal_array_statistics(r) -> None:
         if array.value is not None:
             assert from_summary.value == pytest.approx(array.value, rel=1e-9, abs=1e-12)
     if y.size:
-        # source: sklearn.metrics.log_loss on the labelled rows
+        # source: sklearn.metrics.log_loss on the labeled rows
         assert sm_.log_loss(v).value == pytest.approx(sk_log_loss(y, q, labels=[0, 1]), rel=1e-9)
     if 0 < y.sum() < y.size:
         a = sb.auc(v, min_per_class=2)
@@ -158,7 +158,7 @@ def _no_nan(results: dict[str, Estimate]) -> None:
     for key, e in results.items():
         for x in (e.value, e.se, *(e.ci or ())):
             assert x is None or math.isfinite(x), key
-        assert (e.value is None) == (e.status is not Status.OK), key
+        assert (e.value is None) == (e.status is not Status.MEASURED), key
 
 
 def test_empty_summary_gives_statuses() -> None:
@@ -166,7 +166,7 @@ def test_empty_summary_gives_statuses() -> None:
     _no_nan(out)
     assert out["n_predictions"].value == 0.0
     for key in ("log_loss", "brier", "auc", "calibration_slope", "ece", "psi", "oe_ratio"):
-        assert out[key].status is Status.UNDEFINED, key
+        assert out[key].status is Status.NO_VALUE, key
 
 
 def test_one_class_window() -> None:
@@ -174,12 +174,12 @@ def test_one_class_window() -> None:
     s = Summary.from_arrays(rng.random(50), np.zeros(50, dtype=int))
     out = sm_.all_metrics(s)
     _no_nan(out)
-    assert out["log_loss"].ok
-    assert out["brier"].ok
-    assert out["auc"].status is Status.UNDEFINED  # METHODS.md 5.1: never 0.5
-    assert out["calibration_slope"].status is Status.UNDEFINED
-    assert out["calibration_intercept"].status is Status.UNDEFINED
-    assert out["psi"].status is Status.UNDEFINED  # no reference given
+    assert out["log_loss"].measured
+    assert out["brier"].measured
+    assert out["auc"].status is Status.NO_VALUE  # METHODS.md 5.1: never 0.5
+    assert out["calibration_slope"].status is Status.NO_VALUE
+    assert out["calibration_intercept"].status is Status.NO_VALUE
+    assert out["psi"].status is Status.NO_VALUE  # no reference given
 
 
 def test_all_rows_in_one_bin() -> None:
@@ -189,17 +189,17 @@ def test_all_rows_in_one_bin() -> None:
     _no_nan(out)
     # one tied score: AUC ½ (source: sklearn roc_auc_score on tied scores)
     assert out["auc"].value == pytest.approx(roc_auc_score(y, p))
-    assert out["calibration_slope"].status is Status.INSUFFICIENT_DATA  # no spread in x
+    assert out["calibration_slope"].status is Status.TOO_FEW_CASES  # no spread in x
     assert out["psi"].value == pytest.approx(0.0, abs=1e-15)
 
 
-def test_only_unlabelled_rows() -> None:
+def test_only_unlabeled_rows() -> None:
     s = Summary.from_arrays(np.array([0.1, 0.4, 0.9]), np.array([-1, -1, -1]))
     out = sm_.all_metrics(s)
     _no_nan(out)
     assert out["label_coverage"].value == 0.0
-    assert out["log_loss"].status is Status.UNDEFINED
-    assert sm_.expected_log_loss(s).ok  # needs no labels
+    assert out["log_loss"].status is Status.NO_VALUE
+    assert sm_.expected_log_loss(s).measured  # needs no labels
     implicit = sm_.all_metrics(s, implicit_negatives=True)
     assert implicit["log_loss"].value == pytest.approx(
         sk_log_loss([0, 0, 0], [0.1, 0.4, 0.9], labels=[0, 1]), rel=1e-12)

@@ -163,7 +163,7 @@ def test_auc_delong_se_near_row_level_value() -> None:
 
 def _glm_on_own_bins(s: Summary) -> tuple[np.ndarray, np.ndarray, float]:
     """statsmodels GLM Binomial with freq_weights on the summary's own bins."""
-    v = s.labelled(False)
+    v = s.labeled(False)
     n1, n0 = v.pos[:, F["n"]], v.neg[:, F["n"]]
     with np.errstate(invalid="ignore", divide="ignore"):  # empty cells are dropped below
         x1, x0 = v.pos[:, F["sx"]] / n1, v.neg[:, F["sx"]] / n0  # each class at its own mean logit
@@ -214,7 +214,7 @@ def test_ici_from_bin_means_near_row_lowess() -> None:
 def test_breast_cancer_ici_insufficient() -> None:
     _, _, s = _summary("breast_cancer")
     # METHODS.md 9 floor: 200 events and 200 non-events (the split has 107 / 64)
-    assert sb.integrated_calibration_index(s).status is Status.INSUFFICIENT_DATA
+    assert sb.integrated_calibration_index(s).status is Status.TOO_FEW_CASES
 
 
 def test_all_metrics_keys_and_intervals() -> None:
@@ -226,7 +226,7 @@ def test_all_metrics_keys_and_intervals() -> None:
         "oe_ratio", "log_loss", "log_loss_expected", "brier", "brier_reliability",
         "brier_resolution", "brier_uncertainty", "calibration_intercept", "calibration_slope",
         "spiegelhalter_z", "ece", "auc", "psi"}
-    assert all(e.ok for e in out.values())
+    assert all(e.measured for e in out.values())
     for key in ("mean_probability", "observed_rate", "oe_ratio", "log_loss", "brier",
                 "calibration_intercept", "calibration_slope", "auc"):
         assert out[key].ci is not None

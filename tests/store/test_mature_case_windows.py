@@ -44,12 +44,12 @@ def _post(client, model: str, rng: np.random.Generator) -> pd.DataFrame:
     preds = [{"id": r.id, "probability": float(r.p), "scored_at": r.scored_at.isoformat()}
              for r in frame.itertuples()]
     assert client.post(f"/v1/models/{model}/predictions", json={"predictions": preds}).status_code == 200
-    labelled = frame[frame.label >= 0]
+    labeled = frame[frame.label >= 0]
     outs = [{"id": r.id, "label": int(r.label), "observed_at": r.observed_at.isoformat()}
-            for r in labelled.itertuples()]
+            for r in labeled.itertuples()]
     assert client.post(f"/v1/models/{model}/outcomes", json={"outcomes": outs}).status_code == 200
     # a correction observed much later keeps the case's first observation time
-    fix = labelled.iloc[0]
+    fix = labeled.iloc[0]
     late = {"id": fix.id, "label": 1 - int(fix.label), "observed_at": (fix.observed_at + pd.Timedelta(days=9))
             .isoformat()}
     r = client.post(f"/v1/models/{model}/outcomes", json={"outcomes": [late]})
@@ -79,8 +79,8 @@ def test_windows_return_every_mature_case_once_in_maturity_order(db: Database, h
         r = client.put("/v1/models/w", json={"outcome_horizon_days": horizon, "outcome_lag_days": 1})
         assert r.status_code in (200, 201), r.text
         frame = _post(client, "w", np.random.default_rng(5))
-    labelled = frame[frame.label >= 0]
-    assert (labelled.observed_at < labelled.scored_at).any()  # some outcomes were observed early
+    labeled = frame[frame.label >= 0]
+    assert (labeled.observed_at < labeled.scored_at).any()  # some outcomes were observed early
     with Session(db.engine) as session:
         model = models_repo.get(session, "w")
         conn = session.connection()

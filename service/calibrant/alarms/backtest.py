@@ -1,8 +1,8 @@
-"""Replay history through one rule and say when it would have fired, writing and sending nothing.
+"""Replay history through one rule and say when it would have crossed its limit, writing and sending nothing.
 
 Charts: the mature cases of [start, end) (by maturity time, as known now)
 are fed through fresh in-memory streams exactly as the live job would — the
-first ``min_design_cases`` labelled cases of each stream design its limit,
+first ``min_design_cases`` labeled cases of each stream design its limit,
 the chart starts after them — and after each crossing the chart restarts, as
 if a person had resolved the alarm at once. Window rules: every ready period
 in [start, end) is judged as the live job judges it. Nothing is stored; the
@@ -20,7 +20,7 @@ from sqlalchemy.orm import Session
 
 from calibrant.alarms import charts, windows
 from calibrant.alarms.rules import WINDOW_KINDS, ChartParams, Kind
-from calibrant.alarms.service import ensure_defaults
+from calibrant.alarms.service import ensure_defaults, version_scope
 from calibrant.errors import NotFound, invalid
 from calibrant.ingest.timestamps import required_instant
 from calibrant.models.service import require
@@ -30,7 +30,7 @@ from calibrant.store.alarm_tables import AlarmRule, ChartStream
 from calibrant.store.mature_cases import mature_case_windows
 from calibrant.store.tables import Model
 
-MAX_FIRINGS = 1000
+MAX_CROSSINGS = 1000
 
 
 def backtest(session: Session, model_name: str, rule_name: str, *, start: str | None, end: str | None,
@@ -45,17 +45,17 @@ def backtest(session: Session, model_name: str, rule_name: str, *, start: str | 
         raise invalid("end", "must be after start")
     kind = Kind(rule.kind)
     if kind is Kind.CHART:
-        firings = replay_chart(session, model, rule, lo, min(hi, now), now)
+        crossings = replay_chart(session, model, rule, lo, min(hi, now), now)
     elif kind in WINDOW_KINDS:
         report = windows.evaluate_rule(session, model, rule, now, start=lo, end=hi, dry_run=True)
-        firings = [{"at": d["period_end"], "version": d["version"],
+        crossings = [{"crossed_at": d["period_end"], **version_scope(d["version"]),
                     "segment": _segment(d["segment"]), "summary": d["summary"], "evidence": d["evidence"]}
                    for d in report.decisions]
     else:
         raise invalid("rule", "starvation depends on when data arrived, which a replay of stored "
                               "history cannot reproduce; backtests cover charts and window rules")
     return {"model": model.name, "rule": rule.name, "kind": kind.value, "start": lo, "end": hi,
-            "fired": len(firings), "firings": firings[:MAX_FIRINGS], "sent": 0}
+            "crossing_count": len(crossings), "crossings": crossings[:MAX_CROSSINGS], "sent": 0}
 
 
 def _segment(seg: tuple[str, str]) -> dict[str, str] | None:
@@ -83,23 +83,24 @@ def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetim
     n_charts = max(charts.count_streams(session, [(r, params) for r in alarm_repo.rules_of(session, model.id)
                                                   if r.enabled and r.kind == Kind.CHART]),
                    len(per_stream) * 2, 1)
-    firings: list[dict[str, Any]] = []
+    crossings: list[dict[str, Any]] = []
     for (version, key, value), (ps, ys, ts, ids) in per_stream.items():
         stream = ChartStream(rule_id=rule.id, version=version, segment_key=key, segment_value=value,
-                             consumed=0, skipped_late=0, unlabelled_at_maturity=0, recent=b"", path=[],
+                             consumed=0, skipped_late=0, unlabeled_at_maturity=0, recent=b"", path=[],
                              updated_at=now)
         p, y, t = np.array(ps), np.array(ys), np.array(ts)
         pos = 0
-        while pos < p.size and len(firings) < MAX_FIRINGS:
+        while pos < p.size and len(crossings) < MAX_CROSSINGS:
             crossing, _ = charts.feed(stream, rule, params, p=p[pos:], y=y[pos:], times=t[pos:],
                                       case_ids=ids[pos:], n_charts=n_charts, now=now)
             if crossing is None:
                 break
-            firings.append({"at": crossing.crossed_at, "version": version, "segment": _segment((key, value)),
-                            "summary": f"chart crossed h = {crossing.evidence['control_limit']:.3f}",
-                            "evidence": crossing.evidence})
+            crossings.append({"crossed_at": crossing.crossed_at, **version_scope(version),
+                              "segment": _segment((key, value)),
+                              "summary": f"chart crossed h = {crossing.evidence['control_limit']:.3f}",
+                              "evidence": crossing.evidence})
             used = ids.index(crossing.case_id, pos) + 1
             pos = used
             charts.restart(stream, params, n_charts, now)
-    firings.sort(key=lambda f: f["at"])
-    return firings
+    crossings.sort(key=lambda f: f["crossed_at"])
+    return crossings

@@ -7,7 +7,7 @@ watermark; an outcome received after its case was passed by the watermark is
 counted as ``skipped_late`` and never fed in out of order. A mature case with
 no label (no implicit negatives) is passed over and counted.
 
-Design (METHODS 7.1): once a stream has ``min_design_cases`` labelled mature
+Design (METHODS 7.1): once a stream has ``min_design_cases`` labeled mature
 cases, h is designed by the Markov-chain designer from its recent risks for
 ARL0 = K × (cases per day) × 365.25 / budget, K the number of chart streams
 of the model (``arl0_for_false_alarm_budget``): the model's charts together
@@ -26,6 +26,7 @@ from typing import Any
 import numpy as np
 
 from calibrant.alarms.rules import ChartParams
+from calibrant.clock import rfc3339
 from calibrant.rollup.compute import SegmentBook
 from calibrant.stats.cusum import CusumState, advance, new_chart
 from calibrant.stats.cusum_design import arl0_for_false_alarm_budget, design_cusum
@@ -77,13 +78,23 @@ def cases_per_day(times: np.ndarray) -> float:
     return times.size / max(span, 1.0)
 
 
+PUBLIC_DESIGN_NAMES = {"h": "control_limit", "r_a": "odds_ratio"}
+
+
+def public_design(design: dict[str, Any] | None) -> dict[str, Any] | None:
+    """A stored design as the API shows it: the chart's symbols spelled out."""
+    if design is None:
+        return None
+    return {PUBLIC_DESIGN_NAMES.get(k, k): v for k, v in design.items()}
+
+
 def design_for(recent: np.ndarray, params: ChartParams, n_charts: int, at: datetime) -> dict[str, Any]:
     """A design dict (``CusumDesign.to_dict`` plus the budget it serves), or one with ``error``."""
     risks, times = recent
     rate = cases_per_day(times)
     target = arl0_for_false_alarm_budget(rate, n_charts, params.false_alarms_per_year)
     base = {"cases_per_day": rate, "n_charts": n_charts, "budget_per_year": params.false_alarms_per_year,
-            "designed_at": at.isoformat(), "mean_risk": float(risks.mean())}
+            "designed_at": rfc3339(at), "mean_risk": float(risks.mean())}
     try:
         design = design_cusum(risks, target, params.odds_ratio, n_states=DESIGN_STATES,
                               max_points=DESIGN_POINTS)
@@ -109,12 +120,12 @@ def _epoch(times: list[datetime]) -> np.ndarray:
 
 
 def _iso(ts: float) -> str:
-    return datetime.fromtimestamp(ts, UTC).isoformat().replace("+00:00", "Z")
+    return rfc3339(datetime.fromtimestamp(ts, UTC))
 
 
 def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.ndarray, y: np.ndarray,
          times: np.ndarray, case_ids: list[str], n_charts: int, now: datetime) -> tuple[Crossing | None, int]:
-    """Feed one stream its new labelled mature cases (in order). Returns (crossing, designs made)."""
+    """Feed one stream its new labeled mature cases (in order). Returns (crossing, designs made)."""
     recent = _unpack(stream.recent)
     designs = 0
     start = 0
@@ -154,12 +165,12 @@ def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.nda
             "interval": None,
             "n": step.state.signal_case,
             "odds_ratio": state.r_a,
-            "crossed_at": crossed.isoformat().replace("+00:00", "Z"),
+            "crossed_at": rfc3339(crossed),
             "crossing_case": case_ids[start + i],
             "chart_path": chart_path,
-            "design": stream.design,
+            "design": public_design(stream.design),
             "skipped_late": stream.skipped_late,
-            "unlabelled_at_maturity": stream.unlabelled_at_maturity,
+            "unlabeled_at_maturity": stream.unlabeled_at_maturity,
             "cases_since_reset": step.state.n_cases,
         })
     if step.path is not None and step.path.size:
@@ -182,7 +193,7 @@ def restart(stream: ChartStream, params: ChartParams, n_charts: int, now: dateti
     h = float(stream.design["h"]) if stream.design and "h" in stream.design else None
     stream.state = None if h is None else new_chart(h, params.odds_ratio).to_dict()
     stream.skipped_late = 0
-    stream.unlabelled_at_maturity = 0
+    stream.unlabeled_at_maturity = 0
     stream.path = []
     stream.updated_at = now
 
@@ -247,7 +258,7 @@ def _advance_window(session: Any, version: str, cases: MatureCases,
             if stream is None:
                 stream = ChartStream(rule_id=rule.id, version=key[0], segment_key=key[1],
                                      segment_value=key[2], consumed=0, skipped_late=0,
-                                     unlabelled_at_maturity=0, recent=b"", path=[], updated_at=now)
+                                     unlabeled_at_maturity=0, recent=b"", path=[], updated_at=now)
                 session.add(stream)
                 streams[(rule.id, key)] = stream
             work.append((rule, params, stream, idx))
@@ -259,7 +270,7 @@ def _advance_window(session: Any, version: str, cases: MatureCases,
             continue
         labels = cases.label[fresh]
         keep = [i for i, lab in zip(fresh, labels, strict=True) if lab >= 0]
-        stream.unlabelled_at_maturity += len(fresh) - len(keep)
+        stream.unlabeled_at_maturity += len(fresh) - len(keep)
         last = fresh[-1]
         stream.watermark_at, stream.watermark_case = cases.matured_at[last], cases.case_id[last]
         stream.consumed += len(fresh)

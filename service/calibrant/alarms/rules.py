@@ -77,7 +77,7 @@ class ExcessLogLossParams(_Params):
     granularity: Granularity = "week"
     level: float = Field(0.01, gt=0, lt=0.5)
     min_relative_effect: float = Field(0.05, ge=0, description="excess ≥ this × expected log-loss")
-    min_labelled: int = Field(200, ge=20)
+    min_labeled: int = Field(200, ge=20)
     min_per_class: int = Field(10, ge=1)
 
 
@@ -86,7 +86,7 @@ class ThresholdParams(_Params):
     lower: float | None = None
     upper: float | None = None
     interval_excludes: float | None = Field(
-        None, description="fire only when the 95 % interval also excludes this value"
+        None, description="alarm only when the 95 % interval also excludes this value"
     )
     min_n: int = Field(100, ge=1)
     granularity: Granularity = "week"
@@ -115,7 +115,7 @@ class DriftParams(_Params):
 
 class StarvationParams(_Params):
     max_silence_hours: float = Field(24.0, gt=0)
-    max_unlabelled_share: float = Field(0.5, gt=0, le=1)
+    max_unlabeled_share: float = Field(0.5, gt=0, le=1)
     window_days: int = Field(7, ge=1, le=366)
     min_mature: int = Field(50, ge=1)
 
@@ -169,8 +169,8 @@ def describe(kind: Kind, params: _Params, *, streams: int, chart_streams: int) -
     if isinstance(params, ExcessLogLossParams):
         return {
             "detects": "excess log-loss (observed minus its expectation under calibration) of a closed, "
-                       "mature period above the reference's; a changed case mix alone does not fire it",
-            "minimum_data": f"{params.min_labelled} labelled predictions and {params.min_per_class} of "
+                       "mature period above the reference's; a changed case mix alone does not raise it",
+            "minimum_data": f"{params.min_labeled} labeled predictions and {params.min_per_class} of "
                             "each class in the period",
             "false_alarms": {"per_year": per_year, "level": params.level, "scope": "rule",
                              "statement": f"one-sided test at level {params.level:g} once per "
@@ -192,7 +192,7 @@ def describe(kind: Kind, params: _Params, *, streams: int, chart_streams: int) -
         return {
             "detects": f"{params.metric} of a closed, mature {params.granularity} outside {bounds}",
             "minimum_data": f"{params.min_n} " + ("predictions" if params.metric in LABEL_FREE_METRICS
-                                                    else "labelled predictions") + " in the period",
+                                                    else "labeled predictions") + " in the period",
             "false_alarms": rate,
         }
     if isinstance(params, DriftParams):
@@ -212,12 +212,12 @@ def describe(kind: Kind, params: _Params, *, streams: int, chart_streams: int) -
 def _describe_starvation(params: StarvationParams) -> dict[str, Any]:
     return {
         "detects": f"no predictions for {params.max_silence_hours:g} h, or more than "
-                   f"{params.max_unlabelled_share:.0%} of the last {params.window_days} days' mature "
+                   f"{params.max_unlabeled_share:.0%} of the last {params.window_days} days' mature "
                    "predictions without an outcome",
         "minimum_data": f"{params.min_mature} mature predictions for the outcome share",
         "false_alarms": {"per_year": None, "level": None, "scope": "rule",
                          "statement": "a deterministic condition on the feeds, not a statistical test: "
-                                      "it fires exactly when the condition holds"},
+                                      "it alarms exactly when the condition holds"},
     }
 
 
@@ -229,9 +229,9 @@ def _window_per_year(params: Any, streams: int) -> float:
 # ----------------------------------------------------------------------------- decisions
 @dataclass(frozen=True, slots=True)
 class Decision:
-    """``fire`` None: not enough data to judge (an open alarm then stays as it is)."""
+    """``crossed`` None: not enough data to judge (an open alarm then stays as it is)."""
 
-    fire: bool | None
+    crossed: bool | None
     statistic: float | None
     n: float
     summary: str
@@ -241,7 +241,7 @@ class Decision:
 
 @dataclass(frozen=True, slots=True)
 class LogLossSums:
-    """Labelled-row sums of a window: n, events, Σℓ, ΣH(p), Σ p(1−p)x² (METHODS 0.2)."""
+    """Labeled-row sums of a window: n, events, Σℓ, ΣH(p), Σ p(1−p)x² (METHODS 0.2)."""
 
     n: float
     n1: float
@@ -255,16 +255,16 @@ def excess_log_loss(current: LogLossSums, reference: LogLossSums | None,
     """One-sided test of Δ = D − D_ref > 0, D = (Σℓ − ΣH)/n the excess log-loss.
 
     Under calibration E[ℓ_i] = H(p_i) and Var ℓ_i = p_i(1 − p_i)x_i², x = logit p
-    (METHODS 1, [D]), so Var0 D = Σv/n². z = Δ / sqrt(Var0 D + Var0 D_ref); fire when
-    z > z_{1−α} and Δ ≥ min_relative_effect × E0[LL]. Without a labelled reference
+    (METHODS 1, [D]), so Var0 D = Σv/n². z = Δ / sqrt(Var0 D + Var0 D_ref); cross when
+    z > z_{1−α} and Δ ≥ min_relative_effect × E0[LL]. Without a labeled reference
     D_ref = 0 (the model is compared with perfect calibration). Raw log-loss
     difference is reported as context only: it moves with the case mix.
     """
     n0 = current.n - current.n1
-    if current.n < params.min_labelled or min(current.n1, n0) < params.min_per_class:
+    if current.n < params.min_labeled or min(current.n1, n0) < params.min_per_class:
         return Decision(None, None, current.n,
-                        f"insufficient data: {current.n:g} labelled ({current.n1:g} events); needs "
-                        f"{params.min_labelled} and {params.min_per_class} of each class")
+                        f"too few cases: {current.n:g} labeled ({current.n1:g} events); needs "
+                        f"{params.min_labeled} and {params.min_per_class} of each class")
     if current.sv <= 0:
         return Decision(None, None, current.n, "null variance is 0 (every p is 0, ½ or 1)")
     d = (current.sl - current.sh) / current.n
@@ -281,16 +281,16 @@ def excess_log_loss(current: LogLossSums, reference: LogLossSums | None,
     z_crit = float(stats.norm.ppf(1.0 - params.level))
     expected = current.sh / current.n
     floor = params.min_relative_effect * expected
-    fire = bool(z > z_crit and delta >= floor)
+    crossed = bool(z > z_crit and delta >= floor)
     ll = current.sl / current.n
     detail = {
         "excess_log_loss": d, "reference_excess_log_loss": d_ref, "z": z, "z_critical": z_crit,
         "p_value": float(stats.norm.sf(z)), "level": params.level, "expected_log_loss": expected,
         "minimum_effect": floor, "log_loss": ll,
         "raw_log_loss_difference": None if ll_ref is None else ll - ll_ref,
-        "reference": "labelled reference" if ll_ref is not None else "none: compared with calibration",
+        "reference": "labeled reference" if ll_ref is not None else "none: compared with calibration",
     }
-    return Decision(fire, delta, current.n,
+    return Decision(crossed, delta, current.n,
                     f"excess log-loss {d:.4f} vs reference {d_ref:.4f} (z = {z:.2f}, "
                     f"critical {z_crit:.2f}, minimum effect {floor:.4f})",
                     (delta - 1.959964 * se, delta + 1.959964 * se), detail)
@@ -299,10 +299,10 @@ def excess_log_loss(current: LogLossSums, reference: LogLossSums | None,
 def threshold(est: Estimate, params: ThresholdParams) -> Decision:
     """Value outside [lower, upper] (and, if asked, its 95 % interval excluding a value)."""
     n = float(est.n or 0.0)
-    if est.value is None or not est.ok:
+    if est.value is None or not est.measured:
         return Decision(None, None, n, f"{params.metric} not available: {est.reason}")
     if n < params.min_n:
-        return Decision(None, est.value, n, f"insufficient data: n = {n:g} < {params.min_n}")
+        return Decision(None, est.value, n, f"too few cases: n = {n:g} < {params.min_n}")
     v = est.value
     below = params.lower is not None and v < params.lower
     outside = below or (params.upper is not None and v > params.upper)
@@ -311,8 +311,8 @@ def threshold(est: Estimate, params: ThresholdParams) -> Decision:
         if est.ci is None:
             return Decision(None, v, n, f"{params.metric} has no interval in this period")
         excluded = not (est.ci[0] <= params.interval_excludes <= est.ci[1])
-    fire = bool(outside and excluded)
-    return Decision(fire, v, n, f"{params.metric} = {v:.4g}, bounds [{params.lower}, {params.upper}]",
+    crossed = bool(outside and excluded)
+    return Decision(crossed, v, n, f"{params.metric} = {v:.4g}, bounds [{params.lower}, {params.upper}]",
                     est.ci, {"metric": params.metric, "lower": params.lower, "upper": params.upper,
                              "interval_excludes": params.interval_excludes})
 
@@ -320,14 +320,14 @@ def threshold(est: Estimate, params: ThresholdParams) -> Decision:
 def drift(est: Estimate, params: DriftParams) -> Decision:
     """PSI above max(χ²_{1−α,B−1}(1/n + 1/m), min_psi) (METHODS 6.2 second-order law)."""
     n = float(est.n or 0.0)
-    if est.value is None or not est.ok:
+    if est.value is None or not est.measured:
         return Decision(None, None, n, f"PSI not available: {est.reason}")
     edges = str(est.extra.get("edges", ""))
     n_bins = int(est.extra.get("n_bins") or 2)
     n_ref = float(est.extra.get("n_reference") or 0.0)
     n_cur = float(est.extra.get("n_current") or n)
     if n_cur < params.min_predictions or n_ref <= 0:
-        return Decision(None, est.value, n_cur, f"insufficient data: {n_cur:g} predictions")
+        return Decision(None, est.value, n_cur, f"too few cases: {n_cur:g} predictions")
     null = float(stats.chi2.ppf(1.0 - params.level, n_bins - 1)) * (1.0 / n_ref + 1.0 / n_cur)
     limit = max(null, params.min_psi)
     return Decision(bool(est.value > limit), est.value, n_cur,
@@ -336,19 +336,19 @@ def drift(est: Estimate, params: DriftParams) -> Decision:
                      "level": params.level, "edges": edges})
 
 
-def starvation(silence_hours: float | None, mature: float, unlabelled: float,
+def starvation(silence_hours: float | None, mature: float, unlabeled: float,
                params: StarvationParams) -> Decision:
-    """Silence longer than allowed, or too large an unlabelled share of mature predictions."""
+    """Silence longer than allowed, or too large an unlabeled share of mature predictions."""
     if silence_hours is None:
         return Decision(None, None, 0.0, "no predictions yet")
     silent = silence_hours > params.max_silence_hours
-    share = unlabelled / mature if mature >= params.min_mature else None
-    starved = share is not None and share > params.max_unlabelled_share
+    share = unlabeled / mature if mature >= params.min_mature else None
+    starved = share is not None and share > params.max_unlabeled_share
     parts = [f"last prediction {silence_hours:.1f} h ago (limit {params.max_silence_hours:g} h)"]
     if share is not None:
         parts.append(f"{share:.0%} of {mature:g} mature predictions without outcome "
-                     f"(limit {params.max_unlabelled_share:.0%})")
+                     f"(limit {params.max_unlabeled_share:.0%})")
     return Decision(bool(silent or starved), share if share is not None else silence_hours, mature,
                     "; ".join(parts), None,
-                    {"silence_hours": silence_hours, "unlabelled_share": share, "mature": mature,
+                    {"silence_hours": silence_hours, "unlabeled_share": share, "mature": mature,
                      "silent": silent, "outcomes_missing": starved})

@@ -26,6 +26,8 @@ from calibrant.store.alarm_tables import OPEN, RESOLVED, Alarm, AlarmModelState,
 from calibrant.store.rollup_tables import ALL_SEGMENT
 from calibrant.store.tables import Model
 
+ALL_VERSIONS = ""  # stored version of a model-wide (feed) alarm: no posted version is empty
+
 RULE_NAME_PATTERN = r"^[a-z0-9][a-z0-9_-]{0,63}$"
 
 
@@ -77,10 +79,11 @@ def _stream_out(stream: Any) -> dict[str, Any]:
     state = stream.state or {}
     return {
         "version": stream.version, "segment": _segment(stream.segment_key, stream.segment_value),
-        "designed": stream.state is not None, "s": state.get("s"), "h": state.get("h"),
+        "designed": stream.state is not None, "cusum_statistic": state.get("s"),
+        "control_limit": state.get("h"),
         "cases_since_reset": state.get("n_cases"), "consumed": stream.consumed,
-        "skipped_late": stream.skipped_late, "unlabelled_at_maturity": stream.unlabelled_at_maturity,
-        "watermark": stream.watermark_at, "design_error": (stream.design or {}).get("error"),
+        "skipped_late": stream.skipped_late, "unlabeled_at_maturity": stream.unlabeled_at_maturity,
+        "watermark_at": stream.watermark_at, "design_error": (stream.design or {}).get("error"),
     }
 
 
@@ -193,6 +196,13 @@ def delete_rule(session: Session, model_name: str, name: str, *, actor: str, now
 
 
 # ----------------------------------------------------------------------------- alarms
+def version_scope(stored: str) -> dict[str, str | None]:
+    """How a stream's version reads in the API: a model-wide stream has no version, it has a scope."""
+    if stored == ALL_VERSIONS:
+        return {"version": None, "scope": "all_versions"}
+    return {"version": stored, "scope": "version"}
+
+
 def open_key(rule_id: int, version: str, segment: tuple[str, str]) -> str:
     return f"{rule_id}|{version}|{segment[0]}|{segment[1]}"
 
@@ -224,14 +234,14 @@ def _metrics_link(model: Model, alarm: Alarm) -> str:
         grain = "day"
     segment = None if alarm.segment_key == ALL_SEGMENT else (alarm.segment_key, alarm.segment_value)
     return payloads.metrics_query(model.name, start=start, end=end, granularity=grain,
-                                  version=alarm.version, segment=segment)
+                                  version=version_scope(alarm.version)["version"], segment=segment)
 
 
 def _announce(session: Session, model: Model, alarm: Alarm, kind: str, now: datetime) -> None:
     segment = None if alarm.segment_key == ALL_SEGMENT else (alarm.segment_key, alarm.segment_value)
     data = payloads.alarm_data(
         alarm_id=alarm.id, rule=alarm.rule_name, state=alarm.state, model=model.name,
-        version=alarm.version, segment=segment, evidence=alarm.evidence,
+        version=version_scope(alarm.version)["version"], segment=segment, evidence=alarm.evidence,
         metrics_query=_metrics_link(model, alarm), opened_at=alarm.opened_at,
         resolved_at=alarm.resolved_at, summary=alarm.summary,
     )
@@ -274,7 +284,7 @@ def resolve_by_person(session: Session, model_name: str, alarm_id: int, *, actor
             if (stream.version, stream.segment_key, stream.segment_value) == (
                     alarm.version, alarm.segment_key, alarm.segment_value):
                 charts.restart(stream, params, n_charts, now)
-                restarted = {"h": (stream.state or {}).get("h")}
+                restarted = {"control_limit": (stream.state or {}).get("h")}
     _resolve(session, model, alarm, now=now, by=actor,
              resolution={"reason": "resolved by a person", "note": note, "chart_restarted": restarted})
     audit.record(session, at=now, actor=actor, action="alarm.resolved", target=f"{model.name}/{alarm.id}",
@@ -286,7 +296,7 @@ def resolve_by_person(session: Session, model_name: str, alarm_id: int, *, actor
 
 def alarm_out(alarm: Alarm) -> dict[str, Any]:
     return {
-        "id": alarm.id, "rule": alarm.rule_name, "state": alarm.state, "version": alarm.version,
+        "id": alarm.id, "rule": alarm.rule_name, "state": alarm.state, **version_scope(alarm.version),
         "segment": _segment(alarm.segment_key, alarm.segment_value), "summary": alarm.summary,
         "crossed_at": alarm.crossed_at, "opened_at": alarm.opened_at, "resolved_at": alarm.resolved_at,
         "resolved_by": alarm.resolved_by, "resolution": alarm.resolution, "evidence": alarm.evidence,

@@ -19,6 +19,7 @@ from typing import Any
 from sqlalchemy.orm import Session
 
 from calibrant.alarms import rules, service
+from calibrant.clock import rfc3339
 from calibrant.rollup import query
 from calibrant.rollup.periods import Granularity, Period, periods
 from calibrant.rollup.references import reference_summary
@@ -29,7 +30,7 @@ from calibrant.store.rollup_tables import ALL_SEGMENT
 from calibrant.store.tables import Model
 
 MAX_PERIODS_PER_RUN = 60
-ALL_VERSIONS = "*"  # version of a model-wide (feed) alarm
+ALL_VERSIONS = service.ALL_VERSIONS
 
 
 @dataclass
@@ -60,7 +61,7 @@ def segments_of(session: Session, model: Model) -> list[tuple[str, str]]:
 
 
 def log_loss_sums(summary: Summary, implicit_negatives: bool) -> rules.LogLossSums:
-    v = summary.labelled(implicit_negatives)
+    v = summary.labeled(implicit_negatives)
     return rules.LogLossSums(n=v.total("all", "n"), n1=v.total("pos", "n"), sl=v.total("all", "sl"),
                          sh=v.total("all", "sh"), sv=v.total("all", "sv"))
 
@@ -126,7 +127,7 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
 def _evidence(verdict: rules.Decision, period: Period, grain: str, per_year: float | None) -> dict[str, Any]:
     return {
         "statistic": verdict.statistic, "interval": list(verdict.interval) if verdict.interval else None,
-        "n": verdict.n, "period_start": period.start.isoformat(), "period_end": period.end.isoformat(),
+        "n": verdict.n, "period_start": rfc3339(period.start), "period_end": rfc3339(period.end),
         "granularity": grain, "detail": verdict.detail, "expected_false_alarms_per_year": per_year,
     }
 
@@ -136,22 +137,22 @@ def _apply(session: Session, model: Model, rule: AlarmRule, version: str, segmen
            report: WindowReport, dry_run: bool) -> None:
     grain = rule.params.get("granularity", "week")
     if dry_run:
-        if verdict.fire:
+        if verdict.crossed:
             report.decisions.append({"period_start": period.start, "period_end": period.end,
                                      "version": version, "segment": segment, "summary": verdict.summary,
                                      "evidence": _evidence(verdict, period, grain, per_year)})
         return
     key = service.open_key(rule.id, version, segment)
     current = alarm_repo.open_alarm_for(session, key)
-    if verdict.fire and current is None:
+    if verdict.crossed and current is None:
         service.open_alarm(session, model, rule, version=version, segment=segment, crossed_at=period.end,
                            evidence=_evidence(verdict, period, grain, per_year),
                            summary=f"{rule.name}: {verdict.summary}", now=now)
         report.opened += 1
-    elif verdict.fire is False and current is not None:
+    elif verdict.crossed is False and current is not None:
         service.auto_resolve(session, model, current, now=now, resolution={
-            "reason": "a later period is back within bounds", "period_start": period.start.isoformat(),
-            "period_end": period.end.isoformat(), "statistic": verdict.statistic,
+            "reason": "a later period is back within bounds", "period_start": rfc3339(period.start),
+            "period_end": rfc3339(period.end), "statistic": verdict.statistic,
             "summary": verdict.summary})
         report.resolved += 1
 
@@ -168,7 +169,7 @@ def evaluate_starvation(session: Session, model: Model, rule: AlarmRule, now: da
     versions = alarm_repo.versions_of(conn, model.id)
     last = alarm_repo.last_scored_at(conn, model.id, versions)
     silence = None if last is None else (now - last).total_seconds() / 3600.0
-    mature = unlabelled = 0.0
+    mature = unlabeled = 0.0
     boundary = query.maturity_boundary(model, now)
     if boundary is not None:
         # The newest mature hour is the one starting at the boundary: the window ends after it.
@@ -176,17 +177,17 @@ def evaluate_starvation(session: Session, model: Model, rule: AlarmRule, now: da
         days = query.load_days(conn, model, end - timedelta(days=params.window_days), end,
                                segment=(ALL_SEGMENT, ALL_SEGMENT), version=None, boundary=boundary)
         counts = Summary.merge_many(list(days.mature.values())).counts()
-        mature, unlabelled = sum(counts.values()), counts["unlabelled"]
-    verdict = rules.starvation(silence, mature, unlabelled, params)
+        mature, unlabeled = sum(counts.values()), counts["unlabeled"]
+    verdict = rules.starvation(silence, mature, unlabeled, params)
     key = service.open_key(rule.id, ALL_VERSIONS, (ALL_SEGMENT, ALL_SEGMENT))
     current = alarm_repo.open_alarm_for(session, key)
-    if verdict.fire and current is None:
+    if verdict.crossed and current is None:
         service.open_alarm(session, model, rule, version=ALL_VERSIONS, segment=(ALL_SEGMENT, ALL_SEGMENT),
                            crossed_at=now, summary=f"{rule.name}: {verdict.summary}", now=now,
                            evidence={"statistic": verdict.statistic, "interval": None, "n": verdict.n,
-                                     "detail": verdict.detail, "checked_at": now.isoformat()})
+                                     "detail": verdict.detail, "checked_at": rfc3339(now)})
         report.opened += 1
-    elif verdict.fire is False and current is not None:
+    elif verdict.crossed is False and current is not None:
         service.auto_resolve(session, model, current, now=now,
                              resolution={"reason": "feeds healthy again", "summary": verdict.summary})
         report.resolved += 1

@@ -7,7 +7,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-EventKind = Literal["alarm.opened", "alarm.resolved"]
+EventType = Literal["alarm.opened", "alarm.resolved"]
 MODEL_NAME = r"^[a-z0-9][a-z0-9_-]{0,63}$"
 
 
@@ -17,7 +17,7 @@ class WebhookCreate(BaseModel):
     url: str = Field(min_length=1, max_length=2000, description="http or https URL of the receiver.")
     description: str = Field("", max_length=500)
     model: str | None = Field(None, pattern=MODEL_NAME, description="Only this model's events; null: all.")
-    event_kinds: list[EventKind] = Field(
+    types: list[EventType] = Field(
         default_factory=lambda: ["alarm.opened", "alarm.resolved"], min_length=1, max_length=10
     )
 
@@ -30,7 +30,7 @@ class WebhookUpdate(BaseModel):
     url: str | None = Field(None, min_length=1, max_length=2000)
     description: str | None = Field(None, max_length=500)
     model: str | None = Field(None, pattern=MODEL_NAME)
-    event_kinds: list[EventKind] | None = Field(None, min_length=1, max_length=10)
+    types: list[EventType] | None = Field(None, min_length=1, max_length=10)
 
 
 class WebhookOut(BaseModel):
@@ -38,7 +38,7 @@ class WebhookOut(BaseModel):
     url: str
     description: str
     model: str | None
-    event_kinds: list[str]
+    types: list[EventType] = Field(description="Event types this receiver gets.")
     failing: bool = Field(description="True after repeated consecutive failed attempts.")
     failing_since: datetime | None
     consecutive_failures: int
@@ -70,7 +70,7 @@ class AttemptOut(BaseModel):
 class DeliveryOut(BaseModel):
     id: int
     webhook_id: str = Field(description="The `webhook-id` header, the same on every attempt.")
-    event_type: str
+    type: str = Field(description="The event type, as in the payload's `type`.")
     state: Literal["pending", "delivered", "failed"]
     created_at: datetime
     next_attempt_at: datetime | None

@@ -37,8 +37,8 @@ def enqueue(
     the body is rendered now and never again, so every attempt signs the same
     bytes. Targets with a model filter only get events of that model.
     """
-    if kind not in payloads.SUBSCRIBABLE_KINDS:
-        raise ValueError(f"{kind!r} is not an event kind targets subscribe to: {payloads.SUBSCRIBABLE_KINDS}")
+    if kind not in payloads.SUBSCRIBABLE_TYPES:
+        raise ValueError(f"{kind!r} is not an event kind targets subscribe to: {payloads.SUBSCRIBABLE_TYPES}")
     model_name = (
         session.scalar(select(Model.name).where(Model.id == model_id)) if model_id is not None else None
     )

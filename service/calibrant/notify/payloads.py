@@ -11,30 +11,26 @@ retries while the body does not.
 
 from __future__ import annotations
 
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import Any
 from urllib.parse import quote, urlencode
 
 import orjson
 
+from calibrant.clock import rfc3339
+
 ALARM_OPENED = "alarm.opened"
 ALARM_RESOLVED = "alarm.resolved"
 PING = "ping"
 # Kinds a target can subscribe to; a ping goes to the one target that asked for it.
-SUBSCRIBABLE_KINDS = (ALARM_OPENED, ALARM_RESOLVED)
-EVENT_KINDS = (*SUBSCRIBABLE_KINDS, PING)
-
-
-def rfc3339(at: datetime) -> str:
-    if at.tzinfo is None:
-        raise ValueError("event times are instants; got a naive datetime")
-    return at.astimezone(UTC).isoformat().replace("+00:00", "Z")
+SUBSCRIBABLE_TYPES = (ALARM_OPENED, ALARM_RESOLVED)
+EVENT_TYPES = (*SUBSCRIBABLE_TYPES, PING)
 
 
 def envelope(kind: str, at: datetime, data: dict[str, Any]) -> bytes:
     """The exact body bytes of an event (sorted keys, so equal data gives equal bytes)."""
-    if kind not in EVENT_KINDS:
-        raise ValueError(f"unknown event kind {kind!r}; known: {', '.join(EVENT_KINDS)}")
+    if kind not in EVENT_TYPES:
+        raise ValueError(f"unknown event kind {kind!r}; known: {', '.join(EVENT_TYPES)}")
     document = {"type": kind, "timestamp": rfc3339(at), "data": data}
     return orjson.dumps(document, option=orjson.OPT_SORT_KEYS | orjson.OPT_UTC_Z)
 
@@ -81,7 +77,8 @@ def alarm_data(
     """``data`` of ``alarm.opened`` / ``alarm.resolved``.
 
     ``evidence`` is what the rule saw (statistic, interval, n, window or chart
-    path); ``segment`` is None for all predictions, else (tag key, value).
+    path); ``version`` is None for a model-wide alarm (``scope`` says
+    ``all_versions``); ``segment`` is None for all predictions, else (tag key, value).
     """
     return {
         "alarm": {
@@ -94,6 +91,7 @@ def alarm_data(
         },
         "model": model,
         "version": version,
+        "scope": "all_versions" if version is None else "version",
         "segment": {"key": segment[0], "value": segment[1]} if segment else None,
         "evidence": evidence,
         "metrics_query": metrics_query,

@@ -27,11 +27,11 @@ def _checked_url(url: str, *, allow_private: bool, resolver: Resolver) -> str:
     return url
 
 
-def _kinds(kinds: list[str]) -> list[str]:
-    unknown = [k for k in kinds if k not in payloads.SUBSCRIBABLE_KINDS]
-    if unknown or not kinds:
-        raise invalid("event_kinds", f"choose one or more of {', '.join(payloads.SUBSCRIBABLE_KINDS)}")
-    return sorted(set(kinds))
+def _types(types: list[str]) -> list[str]:
+    unknown = [t for t in types if t not in payloads.SUBSCRIBABLE_TYPES]
+    if unknown or not types:
+        raise invalid("types", f"choose one or more of {', '.join(payloads.SUBSCRIBABLE_TYPES)}")
+    return sorted(set(types))
 
 
 def register(
@@ -40,7 +40,7 @@ def register(
     url: str,
     description: str,
     model: str | None,
-    event_kinds: list[str],
+    event_types: list[str],
     allow_private: bool,
     resolver: Resolver,
     now: datetime,
@@ -53,7 +53,7 @@ def register(
         url=_checked_url(url, allow_private=allow_private, resolver=resolver),
         description=description,
         model_name=model,
-        event_kinds=_kinds(event_kinds),
+        event_types=_types(event_types),
         secret=secret,
         now=now,
     )
@@ -78,7 +78,7 @@ def update(
     now: datetime,
     actor: str,
 ) -> WebhookTarget:
-    """Merge ``changes`` (url, description, model, event_kinds); absent keys stay as they are."""
+    """Merge ``changes`` (url, description, model, types); absent keys stay as they are."""
     target = require(session, target_id)
     if "url" in changes:
         target.url = _checked_url(changes["url"], allow_private=allow_private, resolver=resolver)
@@ -86,8 +86,8 @@ def update(
         target.description = changes["description"]
     if "model" in changes:
         target.model_name = changes["model"]
-    if "event_kinds" in changes:
-        target.event_kinds = _kinds(changes["event_kinds"])
+    if "types" in changes:
+        target.event_types = _types(changes["types"])
     target.updated_at = now
     session.flush()
     _audit(session, now, actor, "webhook.updated", target)
@@ -123,5 +123,5 @@ def _audit(session: Session, now: datetime, actor: str, action: str, target: Web
         actor=actor,
         action=action,
         target=f"webhook:{target.id}",
-        detail={"url": target.url, "model": target.model_name, "event_kinds": target.event_kinds},
+        detail={"url": target.url, "model": target.model_name, "types": target.event_types},
     )

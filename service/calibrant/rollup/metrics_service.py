@@ -71,7 +71,7 @@ def _selection(model: Model, start: str | None, end: str | None, version: str | 
 
 
 def serialise(metrics: dict[str, Estimate]) -> dict[str, Any]:
-    """API shape: every key a number or null, ``k_ci`` for interval keys, a status per key not ok."""
+    """API shape: every key a number or null, ``k_ci`` for interval keys, a status per key not measured."""
     out: dict[str, Any] = {}
     status: dict[str, dict[str, str]] = {}
     for key in (*query.COUNT_KEYS, *query.METRIC_KEYS):
@@ -80,7 +80,7 @@ def serialise(metrics: dict[str, Estimate]) -> dict[str, Any]:
         out[key] = round(value) if key in query.COUNT_KEYS and value is not None else value
         if key in INTERVAL_KEYS:
             out[f"{key}_ci"] = list(est.ci) if est.ci is not None and value is not None else None
-        if value is None or not est.ok:
+        if value is None or not est.measured:
             status[key] = {"state": est.status.value, "reason": est.reason}
     out["status"] = status
     return out
@@ -167,7 +167,7 @@ def reliability(
     )
     mature = Summary.merge_many(list(days.mature.values()))
     diagram = reliability_diagram(
-        mature.labelled(bool(model.implicit_negatives)), n_bins=bins, strategy=strategy
+        mature.labeled(bool(model.implicit_negatives)), n_bins=bins, strategy=strategy
     )
     return {
         "model": model.name,

@@ -2,7 +2,7 @@
 
 Maturity (DESIGN 3) is applied here, at query time: with a horizon H and lag L
 an hourly bucket is mature when its end + H + L ≤ now. Label metrics use the
-mature buckets only (unlabelled rows of mature buckets count as 0 when the
+mature buckets only (unlabeled rows of mature buckets count as 0 when the
 model has implicit negatives); counts, the mean probability and score drift
 use every bucket. So the passing of time needs no recomputation.
 """
@@ -19,7 +19,7 @@ from calibrant.rollup.periods import Period
 from calibrant.stats.result import Estimate, Status, missing
 from calibrant.stats.summary import Summary
 from calibrant.stats.summary_drift import psi
-from calibrant.stats.summary_metrics import all_metrics, label_coverage, mean_probability, n_labelled
+from calibrant.stats.summary_metrics import all_metrics, label_coverage, mean_probability, n_labeled
 from calibrant.store import dirty, rollup_repo
 from calibrant.store.dirty import day_of
 from calibrant.store.rollup_repo import DAY, HOUR
@@ -166,21 +166,21 @@ def period_metrics(
     n_all = sum(everything.counts().values())
     n_young = sum(immature.counts().values())
     out["n_predictions"] = Estimate(value=float(n_all), n=n_all)
-    out["n_labeled"] = n_labelled(everything)
+    out["n_labeled"] = n_labeled(everything)
     out["n_immature"] = Estimate(value=float(n_young), n=n_young)
     out["label_coverage"] = label_coverage(everything)
     out["mean_probability"] = mean_probability(everything)
     if reference is None:
-        out["psi"] = missing(Status.UNDEFINED, NO_REFERENCE)
+        out["psi"] = missing(Status.NO_VALUE, NO_REFERENCE)
     elif everything.is_empty():
-        out["psi"] = missing(Status.INSUFFICIENT_DATA, "no predictions in this period")
+        out["psi"] = missing(Status.TOO_FEW_CASES, "no predictions in this period")
     else:
         out["psi"] = psi(everything, reference)
     if model.outcome_horizon_days is not None and mature.is_empty() and not everything.is_empty():
         for key in METRIC_KEYS:
             if key not in {"label_coverage", "mean_probability", "psi"}:
                 out[key] = missing(
-                    Status.INSUFFICIENT_DATA,
+                    Status.TOO_FEW_CASES,
                     "no mature predictions yet: outcomes are still inside horizon + lag",
                 )
     return out

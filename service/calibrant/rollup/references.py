@@ -15,7 +15,7 @@ import orjson
 from sqlalchemy import Connection
 from sqlalchemy.orm import Session
 
-from calibrant.clock import Clock
+from calibrant.clock import Clock, rfc3339
 from calibrant.errors import FieldError, InvalidInput
 from calibrant.models.service import require
 from calibrant.rollup.query import load_days
@@ -40,7 +40,7 @@ def reference_summary(conn: Connection, model: Any) -> Summary | None:
         datetime.fromisoformat(ref["end"]),
         segment=(ALL_SEGMENT, ALL_SEGMENT),
         version=ref.get("version"),
-        boundary=None,  # every prediction of the range, labelled or not: drift needs no label
+        boundary=None,  # every prediction of the range, labeled or not: drift needs no label
     )
     merged = Summary.merge_many(list(days.mature.values()))
     return None if merged.is_empty() else merged
@@ -92,9 +92,9 @@ def upload(session: Session, model_name: str, body: bytes, *, clock: Clock, acto
     model.reference = {
         "kind": "uploaded",
         "n": int(p.size),
-        "labelled": y is not None,
+        "labeled": y is not None,
         "description": description,
-        "uploaded_at": now.isoformat(),
+        "uploaded_at": rfc3339(now),
     }
     model.updated_at = now
     audit.record(
@@ -103,7 +103,7 @@ def upload(session: Session, model_name: str, body: bytes, *, clock: Clock, acto
         actor=actor,
         action="model.reference_uploaded",
         target=model.name,
-        detail={"n": int(p.size), "labelled": y is not None},
+        detail={"n": int(p.size), "labeled": y is not None},
         model_id=model.id,
     )
     session.flush()

@@ -24,10 +24,10 @@ from numpy.typing import ArrayLike
 
 __all__ = [
     "EPS",
-    "Labelled",
+    "Labeled",
     "Scores",
     "as_counts",
-    "as_labelled",
+    "as_labeled",
     "as_scores",
     "check_closed",
     "check_n_bins",
@@ -39,7 +39,7 @@ EPS = float(np.finfo(np.float64).eps)
 
 
 @dataclass(frozen=True, slots=True)
-class Labelled:
+class Labeled:
     """Validated labels, probabilities and positive frequency weights (float64, 1-D)."""
 
     y: np.ndarray
@@ -107,11 +107,11 @@ def _weights(sample_weight: ArrayLike | None, size: int, name: str) -> tuple[np.
     return w, bool(np.all(w == 1.0))
 
 
-def as_labelled(
+def as_labeled(
     y_true: ArrayLike,
     y_proba: ArrayLike,
     sample_weight: ArrayLike | None = None,
-) -> Labelled:
+) -> Labeled:
     """Validate ``(y_true, y_proba, sample_weight)``; drop zero-weight rows."""
     y = _as_1d_float(y_true, "y_true")
     p = _as_1d_float(y_proba, "y_proba")
@@ -126,7 +126,7 @@ def as_labelled(
         if not keep.all():
             y, p, w = y[keep], p[keep], w[keep]
             unit = bool(np.all(w == 1.0))
-    return Labelled(y=y, p=p, w=w, unit_weights=unit)
+    return Labeled(y=y, p=p, w=w, unit_weights=unit)
 
 
 def as_scores(

@@ -17,7 +17,7 @@ from scipy import stats
 
 from calibrant.stats._binning import assign_bins
 from calibrant.stats._numerics import Z95, norm_two_sided_p, weighted_quantile
-from calibrant.stats._validation import as_labelled, check_n_bins
+from calibrant.stats._validation import as_labeled, check_n_bins
 from calibrant.stats.result import Estimate, Status, estimate, finite_or_none, missing
 
 __all__ = [
@@ -36,12 +36,12 @@ __all__ = [
 def observed_expected_from_sums(n: float, O: float, E: float, Spq: float) -> Estimate:  # noqa: E741 METHODS.md names O, E
     """O/E with 95 % interval and the O − E z from n, O = Σy, E = Σp, Spq = Σp(1 − p)."""
     if n <= 0:
-        return missing(Status.UNDEFINED, "empty window", n=0.0)
+        return missing(Status.NO_VALUE, "empty window", n=0.0)
     z = (O - E) / math.sqrt(Spq) if Spq > 0 else math.nan
     extra = {"observed": O, "expected": E, "z": z,
              "p_value": norm_two_sided_p(z) if math.isfinite(z) else None}
     if not E > 0:
-        return missing(Status.UNDEFINED, "no expected events (every p is 0)", n=n, extra=extra)
+        return missing(Status.NO_VALUE, "no expected events (every p is 0)", n=n, extra=extra)
     oe = O / E
     ci = None
     reason = ""
@@ -65,7 +65,7 @@ def observed_expected(
     in the score-test family of METHODS.md 0.3). O/E > 1: the model
     under-predicts events.
 
-    Edge cases: empty or E = 0 → undefined; O ∈ {0, n}: value without
+    Edge cases: empty or E = 0 → no_value; O ∈ {0, n}: value without
     interval (reason says so).
 
     Hand check: y = (1, 0), p = (0.2, 0.2): O/E = 2.5.
@@ -73,7 +73,7 @@ def observed_expected(
     References: Debray et al. (2017), BMJ 356:i6460 [M, from memory] for the
     variance form; METHODS.md section 3.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     return observed_expected_from_sums(
         d.n, d.n1, float(d.w @ d.p), float(d.w @ (d.p * (1.0 - d.p)))
     )
@@ -97,13 +97,13 @@ def spiegelhalter_from_sums(
     """z_S = numerator / sqrt(variance), two-sided normal p-value in ``extra``.
 
     ``scale`` (Σ p(1 − p), optional) guards the power-sum path: a variance below
-    1e-10·scale is cancellation noise (all p ≈ ½) and gives undefined.
+    1e-10·scale is cancellation noise (all p ≈ ½) and gives no_value.
     """
     floor = 0.0 if scale is None else 1e-10 * scale
     if n is not None and n <= 0:
-        return missing(Status.UNDEFINED, "empty window", n=0.0)
+        return missing(Status.NO_VALUE, "empty window", n=0.0)
     if not variance > floor:
-        return missing(Status.UNDEFINED,
+        return missing(Status.NO_VALUE,
                        "null variance is 0 (every p is ½, 0 or 1): the test is undefined", n=n)
     z = numerator / math.sqrt(variance)
     return estimate(z, n=n, extra={"p_value": norm_two_sided_p(z)})
@@ -121,7 +121,7 @@ def spiegelhalter_z(
     so a uniform shift of risks straddling ½ can cancel; use it with the O − E
     test.
 
-    Edge cases: empty → undefined; all p ∈ {0, ½, 1} → null variance 0 → undefined.
+    Edge cases: empty → no_value; all p ∈ {0, ½, 1} → null variance 0 → no_value.
 
     Published check (Rufibach 2010, Table 1): y = (1, 0), p = (0.2, 0.2) → 1.06;
     p = (0.4, 0.5) → 1.22.
@@ -129,7 +129,7 @@ def spiegelhalter_z(
     References: Spiegelhalter (1986), Statistics in Medicine 5(5):421–433;
     Rufibach (2010), J Clin Epidemiol 63(8):938–939; METHODS.md 4.1.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     p, w = d.p, d.w
     a = 1.0 - 2.0 * p
     return spiegelhalter_from_sums(
@@ -140,7 +140,7 @@ def spiegelhalter_z(
 # ----------------------------------------------------------------------------- Hosmer–Lemeshow
 @dataclass(frozen=True, slots=True)
 class HosmerLemeshow:
-    """Hosmer–Lemeshow statistic with both reference distributions, labelled.
+    """Hosmer–Lemeshow statistic with both reference distributions, labeled.
 
     ``statistic`` is for context and comparability with clinical reporting, not
     for alarms. ``p_value_development`` uses χ²_{g−2} (model fitted on these
@@ -161,8 +161,8 @@ class HosmerLemeshow:
     table: tuple[tuple[float, float, float], ...] = ()  # (n_j, O_j, E_j)
 
     @property
-    def ok(self) -> bool:
-        return self.status is Status.OK
+    def measured(self) -> bool:
+        return self.status is Status.MEASURED
 
 
 def hosmer_lemeshow_from_groups(
@@ -171,7 +171,7 @@ def hosmer_lemeshow_from_groups(
     """Ĉ = Σ_j (O_j − E_j)² / (n_j p̄_j(1 − p̄_j)), p̄_j = E_j/n_j, from group totals.
 
     Empty groups drop out. ``min_expected``: floor on min_j min(E_j, n_j − E_j)
-    (METHODS.md 9: ≥ 10 expected per group), else insufficient_data.
+    (METHODS.md 9: ≥ 10 expected per group), else too_few_cases.
     """
     n_j, o_j, e_j = (np.asarray(a, dtype=np.float64) for a in (n_j, o_j, e_j))
     keep = n_j > 0
@@ -180,27 +180,27 @@ def hosmer_lemeshow_from_groups(
     g = int(n_j.size)
     table = tuple((float(a), float(b), float(c)) for a, b, c in zip(n_j, o_j, e_j, strict=True))
     if g < 3:
-        return HosmerLemeshow(Status.INSUFFICIENT_DATA, "fewer than 3 non-empty groups", n,
+        return HosmerLemeshow(Status.TOO_FEW_CASES, "fewer than 3 non-empty groups", n,
                               n_groups=g, table=table)
     pbar = e_j / n_j
     denom = n_j * pbar * (1.0 - pbar)
     min_exp = float(np.min(np.minimum(e_j, n_j - e_j)))
     # mean risk within 1e-14 of 0 or 1 counts as 0 or 1: cumulative-weight sums round
     if np.any(pbar * (1.0 - pbar) <= 1e-14):
-        return HosmerLemeshow(Status.UNDEFINED, "a group has mean risk 0 or 1", n, n_groups=g,
+        return HosmerLemeshow(Status.NO_VALUE, "a group has mean risk 0 or 1", n, n_groups=g,
                               min_expected=min_exp, table=table)
     if min_exp < min_expected:
         return HosmerLemeshow(
-            Status.INSUFFICIENT_DATA,
+            Status.TOO_FEW_CASES,
             f"a group has fewer than {min_expected:g} expected events or non-events",
             n, n_groups=g, min_expected=min_exp, table=table)
     with np.errstate(over="ignore"):  # a near-0 denominator overflows: caught just below
         c = float(np.sum((o_j - e_j) ** 2 / denom))
     if finite_or_none(c) is None:
-        return HosmerLemeshow(Status.UNDEFINED, "not finite for this input", n, n_groups=g,
+        return HosmerLemeshow(Status.NO_VALUE, "not finite for this input", n, n_groups=g,
                               table=table)
     return HosmerLemeshow(
-        Status.OK, "", n, statistic=c, n_groups=g,
+        Status.MEASURED, "", n, statistic=c, n_groups=g,
         df_development=g - 2, p_value_development=float(stats.chi2.sf(c, g - 2)),
         df_external=g, p_value_external=float(stats.chi2.sf(c, g)),
         min_expected=min_exp, table=table)
@@ -253,11 +253,11 @@ def hosmer_lemeshow(
     groups where needed, so integer weights = repeated rows);
     ``grouping="quantile"``: groups between (weighted) quantiles of p,
     right-closed. Software differs here; with continuous p they agree.
-    Both df are reported and labelled (see :class:`HosmerLemeshow`).
+    Both df are reported and labeled (see :class:`HosmerLemeshow`).
 
-    Edge cases: fewer than 3 non-empty groups → insufficient_data; a group
-    with mean risk 0 or 1 → undefined; a group below ``min_expected`` expected
-    events or non-events → insufficient_data (pass 0 to compute anyway). It
+    Edge cases: fewer than 3 non-empty groups → too_few_cases; a group
+    with mean risk 0 or 1 → no_value; a group below ``min_expected`` expected
+    events or non-events → too_few_cases (pass 0 to compute anyway). It
     rejects for negligible miscalibration at large n and has little power at
     small n; Van Calster et al. (2019) advise against it.
 
@@ -267,9 +267,9 @@ def hosmer_lemeshow(
     g = check_n_bins(n_bins)
     if grouping not in ("equal_count", "quantile"):
         raise ValueError(f"grouping must be 'equal_count' or 'quantile', got {grouping!r}")
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     if d.n <= 0:
-        return HosmerLemeshow(Status.UNDEFINED, "empty window", 0.0)
+        return HosmerLemeshow(Status.NO_VALUE, "empty window", 0.0)
     if grouping == "equal_count":
         n_j, o_j, e_j = _equal_count_groups(d.p, d.w, d.y, g)
     else:

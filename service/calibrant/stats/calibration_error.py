@@ -9,7 +9,7 @@ from numpy.typing import ArrayLike
 
 from calibrant.stats._binning import assign_bins, bin_sums, calibration_bin_edges
 from calibrant.stats._numerics import weighted_quantile
-from calibrant.stats._validation import as_labelled, check_closed, check_n_bins, check_strategy
+from calibrant.stats._validation import as_labeled, check_closed, check_n_bins, check_strategy
 from calibrant.stats.result import Estimate, Status, estimate, finite_or_none, missing
 
 __all__ = [
@@ -41,7 +41,7 @@ def ece_from_bin_sums(counts: ArrayLike, sum_p: ArrayLike, sum_y: ArrayLike) -> 
     nz = c > 0
     n = float(c.sum())
     if n <= 0:
-        return missing(Status.UNDEFINED, "empty window", n=0.0, extra={"variant": "positive_class"})
+        return missing(Status.NO_VALUE, "empty window", n=0.0, extra={"variant": "positive_class"})
     gap = np.abs(sy[nz] / c[nz] - sp[nz] / c[nz])
     return estimate(float(np.sum(c[nz] * gap)) / n, n=n, extra={
         "variant": "positive_class", "mce": float(gap.max()), "n_bins_nonempty": int(nz.sum()),
@@ -53,7 +53,7 @@ def _ece(
     n_bins = check_n_bins(n_bins)
     strategy = check_strategy(strategy)
     closed = check_closed(closed)
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     edges = calibration_bin_edges(d.p, d.w, n_bins=n_bins, strategy=strategy)
     ids = assign_bins(d.p, edges, closed=closed)
     res = ece_from_bin_sums(*bin_sums(ids, n_bins, d.w, d.w * d.p, d.w * d.y))
@@ -89,7 +89,7 @@ def expected_calibration_error(
     bin); compare with a parametric-bootstrap null for the same n and risk
     mix, never with a fixed threshold across window sizes.
 
-    Edge cases: empty → undefined.
+    Edge cases: empty → no_value.
 
     References: Naeini, Cooper & Hauskrecht (2015), Proc. AAAI 29:2901–2907;
     Guo et al. (2017) [M, from memory]; Nixon et al. (2019) [M]; Kumar, Liang &
@@ -116,7 +116,7 @@ def maximum_calibration_error(
     METHODS.md 4.3.
     """
     e = _ece(y_true, y_proba, sample_weight, n_bins, strategy, closed)
-    if not e.ok:
+    if not e.measured:
         return e
     extra = dict(e.extra)
     mce = extra.pop("mce")
@@ -189,8 +189,8 @@ class SmoothCalibration:
     smoother: str = _SMOOTHER
 
     @property
-    def ok(self) -> bool:
-        return self.status is Status.OK
+    def measured(self) -> bool:
+        return self.status is Status.MEASURED
 
 
 def smooth_calibration_from_fit(
@@ -201,13 +201,13 @@ def smooth_calibration_from_fit(
     w = np.ones_like(pa) if sample_weight is None else np.asarray(sample_weight, dtype=np.float64)
     n = float(w.sum())
     if n <= 0:
-        return SmoothCalibration(Status.UNDEFINED, "empty window", 0.0)
+        return SmoothCalibration(Status.NO_VALUE, "empty window", 0.0)
     dist = np.abs(ga - pa)
     e50, e90 = weighted_quantile(dist, np.array([0.5, 0.9]), w)
     vals = [finite_or_none(v) for v in (float(w @ dist) / n, e50, e90, dist.max())]
     if any(v is None for v in vals):
-        return SmoothCalibration(Status.UNDEFINED, "not finite for this input", n)
-    return SmoothCalibration(Status.OK, "", n, *vals)  # type: ignore[arg-type]
+        return SmoothCalibration(Status.NO_VALUE, "not finite for this input", n)
+    return SmoothCalibration(Status.MEASURED, "", n, *vals)  # type: ignore[arg-type]
 
 
 def integrated_calibration_index(
@@ -226,20 +226,20 @@ def integrated_calibration_index(
     (local quadratic), which gives somewhat different numbers (METHODS.md 4.4).
     With bin means as p and bin counts as weights this is the summary path.
 
-    Edge cases: empty or one class → undefined; fewer than ``min_events``
-    events or non-events (METHODS.md 9: 200) → insufficient_data.
+    Edge cases: empty or one class → no_value; fewer than ``min_events``
+    events or non-events (METHODS.md 9: 200) → too_few_cases.
 
     References: Austin & Steyerberg (2019), Statistics in Medicine
     38(21):4051–4065 (Emax credited there to Harrell); METHODS.md 4.4.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     if d.n <= 0:
-        return SmoothCalibration(Status.UNDEFINED, "empty window", 0.0)
+        return SmoothCalibration(Status.NO_VALUE, "empty window", 0.0)
     if d.n1 <= 0 or d.n0 <= 0:
-        return SmoothCalibration(Status.UNDEFINED, "one class only", d.n)
+        return SmoothCalibration(Status.NO_VALUE, "one class only", d.n)
     if d.n1 < min_events or d.n0 < min_events:
         return SmoothCalibration(
-            Status.INSUFFICIENT_DATA,
+            Status.TOO_FEW_CASES,
             f"need at least {min_events} events and {min_events} non-events "
             f"(have {d.n1:g} and {d.n0:g})", d.n)
     fitted = lowess(d.p, d.y, sample_weight=d.w)

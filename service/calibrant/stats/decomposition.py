@@ -9,7 +9,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from calibrant.stats._binning import assign_bins, bin_sums, calibration_bin_edges
-from calibrant.stats._validation import as_labelled, check_closed, check_n_bins
+from calibrant.stats._validation import as_labeled, check_closed, check_n_bins
 from calibrant.stats.result import Status, finite_or_none
 
 __all__ = ["BrierDecomposition", "murphy_decomposition", "murphy_from_bin_sums"]
@@ -17,7 +17,7 @@ __all__ = ["BrierDecomposition", "murphy_decomposition", "murphy_from_bin_sums"]
 
 @dataclass(frozen=True, slots=True)
 class BrierDecomposition:
-    """BS = REL − RES + UNC + WBV − WBC; every field ``None`` unless status is ok."""
+    """BS = REL − RES + UNC + WBV − WBC; every field ``None`` unless status is measured."""
 
     status: Status
     reason: str
@@ -31,13 +31,13 @@ class BrierDecomposition:
     n_bins_nonempty: int = 0
 
     @property
-    def ok(self) -> bool:
-        return self.status is Status.OK
+    def measured(self) -> bool:
+        return self.status is Status.MEASURED
 
     @property
     def generalised_resolution(self) -> float | None:
         """RES − WBV + WBC (Stephenson et al. 2008), less dependent on the bin width."""
-        if not self.ok:
+        if not self.measured:
             return None
         return self.resolution - self.within_bin_variance + self.within_bin_covariance  # type: ignore[operator]
 
@@ -55,7 +55,7 @@ def murphy_from_bin_sums(
     nz = n_k > 0
     n = float(n_k.sum())
     if n <= 0:
-        return BrierDecomposition(Status.UNDEFINED, "empty window", 0.0)
+        return BrierDecomposition(Status.NO_VALUE, "empty window", 0.0)
     nk, sp, sp2, ok_, spy = n_k[nz], sp_k[nz], sp2_k[nz], o_k[nz], spy_k[nz]
     ybar = float(ok_.sum()) / n
     fbar, obar = sp / nk, ok_ / nk
@@ -66,8 +66,8 @@ def murphy_from_bin_sums(
     wbc = 2.0 * float(np.sum(spy - sp * ok_ / nk)) / n
     vals = [finite_or_none(v) for v in (rel, res, unc, wbv, wbc, rel - res + unc + wbv - wbc)]
     if any(v is None for v in vals):
-        return BrierDecomposition(Status.UNDEFINED, "not finite for this input", n)
-    return BrierDecomposition(Status.OK, "", n, *vals, n_bins_nonempty=int(nz.sum()))  # type: ignore[arg-type]
+        return BrierDecomposition(Status.NO_VALUE, "not finite for this input", n)
+    return BrierDecomposition(Status.MEASURED, "", n, *vals, n_bins_nonempty=int(nz.sum()))  # type: ignore[arg-type]
 
 
 def murphy_decomposition(
@@ -93,7 +93,7 @@ def murphy_decomposition(
     the mergeable summary's fine-grid rule (so summary and array agree
     exactly); ``closed="right"`` gives sklearn's ``calibration_curve`` rule.
 
-    Edge cases: empty → undefined; empty bins drop out; REL is biased upward in
+    Edge cases: empty → no_value; empty bins drop out; REL is biased upward in
     small bins (≈ f̄(1 − f̄)/n_k each): do not alarm on it.
 
     References: Murphy (1973), J Appl Meteorology 12(4):595–600; Stephenson,
@@ -102,7 +102,7 @@ def murphy_decomposition(
     """
     n_bins = check_n_bins(n_bins)
     closed = check_closed(closed)
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     edges = calibration_bin_edges(d.p, d.w, n_bins=n_bins, strategy="uniform")
     ids = assign_bins(d.p, edges, closed=closed)
     wp, wy = d.w * d.p, d.w * d.y

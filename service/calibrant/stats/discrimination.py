@@ -16,7 +16,7 @@ from numpy.typing import ArrayLike
 from scipy.special import expit, logit
 
 from calibrant.stats._numerics import Z95
-from calibrant.stats._validation import as_labelled
+from calibrant.stats._validation import as_labeled
 from calibrant.stats.result import Estimate, Status, estimate, missing
 
 __all__ = [
@@ -36,7 +36,7 @@ def class_counts_by_score(
     y_true: ArrayLike, y_proba: ArrayLike, *, sample_weight: ArrayLike | None = None
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(distinct scores ascending, weight of non-events, weight of events) per score."""
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     scores, inv = np.unique(d.p, return_inverse=True)
     neg = np.bincount(inv, weights=d.w * (1.0 - d.y), minlength=scores.size)
     pos = np.bincount(inv, weights=d.w * d.y, minlength=scores.size)
@@ -58,9 +58,9 @@ def auc_from_class_counts(
     n1k = np.asarray(pos_counts, dtype=np.float64)
     N0, N1 = float(n0k.sum()), float(n1k.sum())
     if N0 + N1 <= 0:
-        return missing(Status.UNDEFINED, "empty window", n=0.0)
+        return missing(Status.NO_VALUE, "empty window", n=0.0)
     if N0 <= 0 or N1 <= 0:
-        return missing(Status.UNDEFINED, "one class only: AUC is undefined (not 0.5)", n=N0 + N1)
+        return missing(Status.NO_VALUE, "one class only: AUC is undefined (not 0.5)", n=N0 + N1)
     below0 = np.cumsum(n0k) - n0k  # non-event weight strictly below each score
     above1 = N1 - np.cumsum(n1k)  # event weight strictly above each score
     v10 = (below0 + 0.5 * n0k) / N0
@@ -99,7 +99,7 @@ def roc_auc(
     logit(AUC) ± 1.96 SE/(AUC(1 − AUC)), back-transformed (the Wald interval,
     in ``extra``, can exceed 1). Weighted version = weighted Mann–Whitney.
 
-    Edge cases: empty or one class → undefined (never 0.5); fewer than
+    Edge cases: empty or one class → no_value (never 0.5); fewer than
     ``min_per_class`` events or non-events → value without SE or interval
     (reason says so); AUC ∈ {0, 1} → no logit interval.
 
@@ -118,9 +118,9 @@ def average_precision_from_class_counts(neg_counts: ArrayLike, pos_counts: Array
     n1k = np.asarray(pos_counts, dtype=np.float64)[::-1]
     N1, N = float(n1k.sum()), float(n1k.sum() + n0k.sum())
     if N <= 0:
-        return missing(Status.UNDEFINED, "empty window", n=0.0)
+        return missing(Status.NO_VALUE, "empty window", n=0.0)
     if N1 <= 0:
-        return missing(Status.UNDEFINED,
+        return missing(Status.NO_VALUE,
                        "no events: average precision is undefined (sklearn returns 0)", n=N)
     tp = np.cumsum(n1k)
     fp = np.cumsum(n0k)
@@ -142,7 +142,7 @@ def average_precision(
     2006). A no-skill model has AP ≈ prevalence (``extra['no_skill']``), so AP
     moves with prevalence.
 
-    Edge cases: empty or no events → undefined (sklearn returns 0.0 there);
+    Edge cases: empty or no events → no_value (sklearn returns 0.0 there);
     very few events → extremely variable (bootstrap for uncertainty).
 
     References: Davis & Goadrich (2006), ICML [M, from memory]; Boyd, Eng &

@@ -114,13 +114,13 @@ def psi_from_counts(
         "common_practice_major": PSI_COMMON_PRACTICE_MAJOR,
     }
     if n <= 0 or m <= 0:
-        return missing(Status.UNDEFINED, "reference or current sample is empty", extra=extra)
+        return missing(Status.NO_VALUE, "reference or current sample is empty", extra=extra)
     if B < 2:
-        return missing(Status.UNDEFINED, "need at least 2 bins", extra=extra)
+        return missing(Status.NO_VALUE, "need at least 2 bins", extra=extra)
     extra["null_95"] = float(stats.chi2.ppf(0.95, B - 1)) * (1.0 / n + 1.0 / m)
     value = _psi_value(r, c, smoothing)
     if not math.isfinite(value):
-        return missing(Status.UNDEFINED,
+        return missing(Status.NO_VALUE,
                        "a bin is empty in one sample and smoothing is 0: PSI is infinite",
                        extra=extra)
     if n_null > 0:
@@ -157,9 +157,9 @@ def psi(
     simulation of the same (``extra['null_95_simulated']``). The fixed levels
     0.1 ("minor") and 0.25 ("major") are common practice with no published
     source and no regard to sample size; they appear in ``extra`` only as
-    labelled context. Alarm on PSI relative to ``null_95``.
+    labeled context. Alarm on PSI relative to ``null_95``.
 
-    Edge cases: an empty sample → undefined; smoothing 0 with an empty bin → undefined.
+    Edge cases: an empty sample → no_value; smoothing 0 with an empty bin → no_value.
 
     References: Yurdakul (2018), PhD dissertation, Western Michigan University;
     Yurdakul & Naranjo, J Risk Model Validation [year M, from memory];
@@ -199,7 +199,7 @@ def js_distance_from_counts(
         "n_reference": n, "n_current": m, "n_bins": int(r.size), "smoothing": smoothing,
         "base": 2, "n_null": n_null, "seed": seed}
     if n <= 0 or m <= 0:
-        return missing(Status.UNDEFINED, "reference or current sample is empty", extra=extra)
+        return missing(Status.NO_VALUE, "reference or current sample is empty", extra=extra)
     value = _js(r, c, smoothing)
     if n_null > 0:
         sims = _multinomial_null(r, c, lambda a, b: _js(a, b, smoothing), n_null=n_null, seed=seed)
@@ -232,7 +232,7 @@ def js_distance(
     with the observed sizes (``n_null`` draws, ``numpy.random.default_rng(seed)``;
     set ``n_null=0`` to skip). There is no standard null distribution.
 
-    Edge cases: an empty sample → undefined.
+    Edge cases: an empty sample → no_value.
 
     References: Lin (1991), IEEE Trans Inf Theory 37(1):145–151 [M, from
     memory]; Endres & Schindelin (2003), IEEE Trans Inf Theory 49(7):1858–1860
@@ -255,7 +255,7 @@ def ks_from_counts(reference_counts: ArrayLike, current_counts: ArrayLike) -> Es
     r, c = _pair(reference_counts, current_counts)
     n, m = float(r.sum()), float(c.sum())
     if n <= 0 or m <= 0:
-        return missing(Status.UNDEFINED, "reference or current sample is empty")
+        return missing(Status.NO_VALUE, "reference or current sample is empty")
     d = float(np.max(np.abs(np.cumsum(r) / n - np.cumsum(c) / m)))
     return estimate(d, n=m, extra={"p_value": _ks_asymp_p(d, n, m), "p_method": "asymp",
                                    "n_reference": n, "n_current": m, "lower_bound": 1})
@@ -278,7 +278,7 @@ def ks_2samp(
     assumes continuous, independent samples: conservative with ties, too small
     with clustering; with large n treat D as an effect size.
 
-    Edge cases: an empty sample → undefined.
+    Edge cases: an empty sample → no_value.
 
     References: Kolmogorov (1933) [M, from memory]; Smirnov (1948), Ann Math
     Stat 19(2):279–281 [M]; METHODS.md 6.3.
@@ -289,7 +289,7 @@ def ks_2samp(
                   weight_name="current_weight")
     n, m = a.n, b.n
     if n <= 0 or m <= 0:
-        return missing(Status.UNDEFINED, "reference or current sample is empty")
+        return missing(Status.NO_VALUE, "reference or current sample is empty")
     if a.unit_weights and b.unit_weights:
         res = stats.ks_2samp(a.p, b.p)
         return estimate(float(res.statistic), n=m, extra={

@@ -19,7 +19,7 @@ from scipy import stats
 from scipy.special import expit
 
 from calibrant.stats._numerics import Z95, clipped_logit, norm_two_sided_p
-from calibrant.stats._validation import as_labelled, as_scores
+from calibrant.stats._validation import as_labeled, as_scores
 from calibrant.stats.result import Estimate, Status, estimate, missing
 
 __all__ = [
@@ -118,7 +118,7 @@ def calibration_intercept_from_logits(
     y_true: ArrayLike, logits: ArrayLike, *, sample_weight: ArrayLike | None = None
 ) -> Estimate:
     """:func:`calibration_intercept` with the model's logits x given directly."""
-    d = as_labelled(y_true, np.zeros(np.shape(logits)), sample_weight)
+    d = as_labeled(y_true, np.zeros(np.shape(logits)), sample_weight)
     x = as_scores(logits, sample_weight, name="logits", check_unit_interval=False).p
     return _citl(d.y, x, d.w, d.n1, d.n0)
 
@@ -126,10 +126,10 @@ def calibration_intercept_from_logits(
 def _citl(y: np.ndarray, x: np.ndarray, w: np.ndarray, n1: float, n0: float) -> Estimate:
     why = _undefined_classes(n1, n0)
     if why:
-        return missing(Status.UNDEFINED, why, n=n1 + n0)
+        return missing(Status.NO_VALUE, why, n=n1 + n0)
     fit = _newton(np.ones((x.size, 1)), y, w, x)
     if fit is None:
-        return missing(Status.INSUFFICIENT_DATA, "the offset fit did not converge", n=n1 + n0)
+        return missing(Status.TOO_FEW_CASES, "the offset fit did not converge", n=n1 + n0)
     a, se = float(fit.params[0]), math.sqrt(fit.cov[0, 0])
     ll0 = _loglik(x, y, w)
     lr = max(2.0 * (fit.loglik - ll0), 0.0)
@@ -151,13 +151,13 @@ def calibration_intercept(
     χ²₁ p-value. This is *not* the intercept of the free-slope model
     (:func:`recalibration_intercept`).
 
-    Edge cases: empty or one class → undefined (the MLE does not exist).
+    Edge cases: empty or one class → no_value (the MLE does not exist).
 
     References: Van Calster et al. (2016), J Clin Epidemiol 74:167–176;
     Van Calster et al. (2019), BMC Medicine 17:230; METHODS.md section 3.
     Same numbers as statsmodels ``GLM(y, 1, Binomial(), offset=x)``.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     return _citl(d.y, clipped_logit(d.p), d.w, d.n1, d.n0)
 
 
@@ -177,8 +177,8 @@ class Recalibration:
         return self.slope.status
 
     @property
-    def ok(self) -> bool:
-        return self.slope.ok
+    def measured(self) -> bool:
+        return self.slope.measured
 
 
 def _separated(x: np.ndarray, y: np.ndarray) -> bool:
@@ -193,7 +193,7 @@ def logistic_recalibration_from_logits(
     min_events: int = MIN_EVENTS_SLOPE,
 ) -> Recalibration:
     """:func:`logistic_recalibration` with the model's logits given directly."""
-    d = as_labelled(y_true, np.zeros(np.shape(logits)), sample_weight)
+    d = as_labeled(y_true, np.zeros(np.shape(logits)), sample_weight)
     x = as_scores(logits, sample_weight, name="logits", check_unit_interval=False).p
     return _recal(d.y, x, d.w, d.n1, d.n0, min_events)
 
@@ -203,21 +203,21 @@ def _recal(
     n = n1 + n0
     why = _undefined_classes(n1, n0)
     if why:
-        m = missing(Status.UNDEFINED, why, n=n)
+        m = missing(Status.NO_VALUE, why, n=n)
         return Recalibration(m, m)
     if n1 < min_events or n0 < min_events:
-        m = missing(Status.INSUFFICIENT_DATA,
+        m = missing(Status.TOO_FEW_CASES,
                     f"need at least {min_events} events and {min_events} non-events "
                     f"(have {n1:g} and {n0:g})", n=n)
         return Recalibration(m, m)
     if _separated(x, y):
-        m = missing(Status.INSUFFICIENT_DATA,
+        m = missing(Status.TOO_FEW_CASES,
                     "events and non-events are separated by the score: the slope is infinite", n=n)
         return Recalibration(m, m)
     X = np.column_stack([np.ones_like(x), x])
     fit = _newton(X, y, w, np.zeros_like(x))
     if fit is None:
-        m = missing(Status.INSUFFICIENT_DATA,
+        m = missing(Status.TOO_FEW_CASES,
                     "the recalibration fit diverged (near-separation)", n=n)
         return Recalibration(m, m)
     extreme = np.abs(x) > EXTREME_LOGIT
@@ -252,16 +252,16 @@ def logistic_recalibration(
     (after ε-clipping up to ±36) are high-leverage: their weight is
     ``n_extreme_logits`` and ``slope_winsorised_16`` is the sensitivity fit.
 
-    Edge cases: empty or one class → undefined; fewer than ``min_events``
-    events or non-events (METHODS.md 9: hard floor 20) → insufficient_data;
-    separated classes or a diverging fit → insufficient_data (statsmodels
+    Edge cases: empty or one class → no_value; fewer than ``min_events``
+    events or non-events (METHODS.md 9: hard floor 20) → too_few_cases;
+    separated classes or a diverging fit → too_few_cases (statsmodels
     would return huge coefficients and SEs there).
 
     References: Cox (1958), Biometrika 45(3/4):562–565 [M, from memory];
     Van Calster et al. (2016), J Clin Epidemiol 74:167–176; METHODS.md
     section 3. Same numbers as statsmodels ``Logit(y, [1, x])``.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     return _recal(d.y, clipped_logit(d.p), d.w, d.n1, d.n0, min_events)
 
 
@@ -310,7 +310,7 @@ def recalibration_tests_from_logits(
     min_events: int = MIN_EVENTS_SLOPE,
 ) -> RecalibrationTests:
     """:func:`recalibration_tests` with the model's logits given directly."""
-    d = as_labelled(y_true, np.zeros(np.shape(logits)), sample_weight)
+    d = as_labeled(y_true, np.zeros(np.shape(logits)), sample_weight)
     x = as_scores(logits, sample_weight, name="logits", check_unit_interval=False).p
     return _tests(d.y, x, d.w, d.n1, d.n0, min_events)
 
@@ -325,13 +325,13 @@ def _tests(
     n = n1 + n0
     ll0 = _loglik(x, y, w)
     citl = _citl(y, x, w, n1, n0)
-    if not citl.ok:
+    if not citl.measured:
         m = missing(citl.status, citl.reason, n=n)
         return RecalibrationTests(m, m, m)
     ll_a = ll0 + float(citl.extra["lr_statistic"]) / 2.0  # type: ignore[arg-type]
     c = _lr(2.0 * (ll_a - ll0), 1, n)
     rec = _recal(y, x, w, n1, n0, min_events)
-    if not rec.slope.ok:
+    if not rec.slope.measured:
         m = missing(rec.slope.status, rec.slope.reason, n=n)
         return RecalibrationTests(m, c, m)
     ll_ab = _loglik(rec.intercept.value + rec.slope.value * x, y, w)  # type: ignore[operator]
@@ -353,5 +353,5 @@ def recalibration_tests(
     References: Cox (1958), Biometrika 45(3/4):562–565 [M, from memory];
     METHODS.md section 3.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     return _tests(d.y, clipped_logit(d.p), d.w, d.n1, d.n0, min_events)

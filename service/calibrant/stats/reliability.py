@@ -11,7 +11,7 @@ from numpy.typing import ArrayLike
 
 from calibrant.stats._binning import assign_bins, bin_sums, calibration_bin_edges
 from calibrant.stats._numerics import Z95
-from calibrant.stats._validation import as_labelled, check_closed, check_n_bins, check_strategy
+from calibrant.stats._validation import as_labeled, check_closed, check_n_bins, check_strategy
 from calibrant.stats.result import Status
 
 __all__ = [
@@ -72,8 +72,8 @@ class ReliabilityDiagram:
     interval: str = "wilson_95"
 
     @property
-    def ok(self) -> bool:
-        return self.status is Status.OK
+    def measured(self) -> bool:
+        return self.status is Status.MEASURED
 
 
 def reliability_from_bin_sums(
@@ -96,7 +96,7 @@ def reliability_from_bin_sums(
         else:
             bins.append(ReliabilityBin(float(e[k]), float(e[k + 1]), 0.0, None, None, None, None))
     n = float(c.sum())
-    status, reason = (Status.OK, "") if n > 0 else (Status.UNDEFINED, "empty window")
+    status, reason = (Status.MEASURED, "") if n > 0 else (Status.NO_VALUE, "empty window")
     return ReliabilityDiagram(status, reason, n, tuple(bins), strategy, closed)
 
 
@@ -126,7 +126,7 @@ def reliability_diagram(
     n_bins = check_n_bins(n_bins)
     strategy = check_strategy(strategy)
     closed = check_closed(closed)
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     edges = calibration_bin_edges(d.p, d.w, n_bins=n_bins, strategy=strategy)
     ids = assign_bins(d.p, edges, closed=closed)
     c, sp, sy = bin_sums(ids, n_bins, d.w, d.w * d.p, d.w * d.y)

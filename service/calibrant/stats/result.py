@@ -17,9 +17,9 @@ import numpy as np
 class Status(StrEnum):
     """Why a value is, or is not, there."""
 
-    OK = "ok"
-    INSUFFICIENT_DATA = "insufficient_data"  # defined in principle, too little data to trust
-    UNDEFINED = "undefined"  # no value exists for this input (e.g. AUC with one class)
+    MEASURED = "measured"
+    TOO_FEW_CASES = "too_few_cases"  # defined in principle, too little data to trust
+    NO_VALUE = "no_value"  # no value exists for this input (e.g. AUC with one class)
 
 
 @dataclass(frozen=True, slots=True)
@@ -31,7 +31,7 @@ class Estimate:
     """
 
     value: float | None
-    status: Status = Status.OK
+    status: Status = Status.MEASURED
     reason: str = ""
     se: float | None = None
     ci: tuple[float, float] | None = None
@@ -50,8 +50,8 @@ class Estimate:
                 raise ValueError(f"extra[{key!r}] must be finite, got {v!r}")
 
     @property
-    def ok(self) -> bool:
-        return self.status is Status.OK
+    def measured(self) -> bool:
+        return self.status is Status.MEASURED
 
 
 def missing(
@@ -88,12 +88,12 @@ def estimate(
     n: float | None = None,
     extra: dict[str, float | int | str | None] | None = None,
     reason: str = "",
-    undefined_reason: str = "not finite for this input",
+    no_value_reason: str = "not finite for this input",
 ) -> Estimate:
-    """Build an ``ok`` estimate, mapping every non-finite number to ``None``.
+    """Build a ``measured`` estimate, mapping every non-finite number to ``None``.
 
-    If ``value`` itself is not finite the result is ``undefined`` with
-    ``undefined_reason``; a non-finite ``se`` or ``ci`` bound just drops the
+    If ``value`` itself is not finite the result is ``no_value`` with
+    ``no_value_reason``; a non-finite ``se`` or ``ci`` bound just drops the
     interval. ``extra`` values that are floats pass through
     :func:`finite_or_none`; ints and strings are kept.
     """
@@ -101,7 +101,7 @@ def estimate(
     nn = finite_or_none(n)
     val = finite_or_none(value)
     if val is None:
-        return Estimate(value=None, status=Status.UNDEFINED, reason=undefined_reason, n=nn,
+        return Estimate(value=None, status=Status.NO_VALUE, reason=no_value_reason, n=nn,
                         extra=clean)
     s = finite_or_none(se)
     interval = None

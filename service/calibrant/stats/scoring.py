@@ -27,7 +27,7 @@ from calibrant.stats._numerics import (
     norm_two_sided_p,
     variance_from_sums,
 )
-from calibrant.stats._validation import EPS, as_labelled, as_scores
+from calibrant.stats._validation import EPS, as_labeled, as_scores
 from calibrant.stats.result import Estimate, Status, estimate, missing
 
 __all__ = [
@@ -67,12 +67,12 @@ def log_loss_from_sums(
     """Mean log-loss, its standard error and normal 95 % interval from sums.
 
     LL = Sl / n; SE = sqrt((Sll − Sl²/n)/(n − 1)) / sqrt(n) (ddof 1, variance
-    clamped at 0). Empty → undefined; n ≤ 1 gives the value without SE.
+    clamped at 0). Empty → no_value; n ≤ 1 gives the value without SE.
     ``extra`` records ε and the clipped / confident-error counts.
     """
     extra = {"eps": EPS, "n_clipped": n_clipped, "n_confident_errors": n_confident_errors}
     if n <= 0:
-        return missing(Status.UNDEFINED, _EMPTY, n=0.0, extra=extra)
+        return missing(Status.NO_VALUE, _EMPTY, n=0.0, extra=extra)
     ll = Sl / n
     var = variance_from_sums(n, Sl, Sll)
     se = math.sqrt(var / n) if math.isfinite(var) else None
@@ -97,14 +97,14 @@ def log_loss(
     ``n_confident_errors`` (weight of rows with y = 1, p < 1e-6 or y = 0,
     p > 1 − 1e-6) — one such row adds 14 to 36 nats.
 
-    Edge cases: empty → undefined. One class is fine (log-loss is defined).
+    Edge cases: empty → no_value. One class is fine (log-loss is defined).
 
     Hand check: y = (1, 0), p = (0, 0) → (36.04 + 0)/2 = 18.0218.
 
     References: Good (1952) [M, from memory]; Gneiting & Raftery (2007),
     JASA 102(477):359–378 [M]; METHODS.md section 1 and 0.1.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     y, p, w = d.y, d.p, d.w
     lt = log_loss_terms(y, p)
     clipped = (p < EPS) | (p > 1.0 - EPS)
@@ -128,7 +128,7 @@ def _count(w: np.ndarray, mask: np.ndarray) -> float | int:
 def expected_log_loss_from_sums(n: float, SH: float, Sv: float) -> Estimate:
     """E0[LL] = SH/n and its null SD sqrt(Sv)/n (as ``se``); see :func:`expected_log_loss`."""
     if n <= 0:
-        return missing(Status.UNDEFINED, _EMPTY, n=0.0)
+        return missing(Status.NO_VALUE, _EMPTY, n=0.0)
     return estimate(SH / n, se=math.sqrt(max(Sv, 0.0)) / n, n=n)
 
 
@@ -141,13 +141,13 @@ def expected_log_loss(
     with x = logit(p) (clipped at ε). Needs no labels: ``y_true`` may be ``None``
     (it is validated when given, but unused). ``se`` holds SD0.
 
-    Edge cases: empty → undefined; p ∈ {0, 1} contribute 0 to both terms.
+    Edge cases: empty → no_value; p ∈ {0, 1} contribute 0 to both terms.
 
     Reference: METHODS.md section 1 [D, derived there]; the standardised-score
     idea is Seillier-Moiseiwitsch & Dawid (1993), JASA 88(421):355–359.
     """
     if y_true is not None:
-        d = as_labelled(y_true, y_proba, sample_weight)
+        d = as_labeled(y_true, y_proba, sample_weight)
         p, w = d.p, d.w
     else:
         s = as_scores(y_proba, sample_weight)
@@ -175,10 +175,10 @@ def log_loss_calibration_z_from_sums(
     parametric bootstrap p-value.
     """
     if n <= 0:
-        return missing(Status.UNDEFINED, _EMPTY, n=0.0)
+        return missing(Status.NO_VALUE, _EMPTY, n=0.0)
     if not Sv > 0.0:
         return missing(
-            Status.UNDEFINED, "null variance is 0 (every p is ½, 0 or 1): test undefined", n=n
+            Status.NO_VALUE, "null variance is 0 (every p is ½, 0 or 1): test undefined", n=n
         )
     z = (Sl - SH) / math.sqrt(Sv)
     extra: dict[str, float | int | str | None] = {
@@ -204,14 +204,14 @@ def log_loss_calibration_z(
     calibrated forecaster with the same p would (typically too extreme);
     z < 0: too timid. One-degree-of-freedom test, not omnibus.
 
-    Edge cases: empty → undefined; all p = ½ → Var0 = 0 → undefined.
+    Edge cases: empty → no_value; all p = ½ → Var0 = 0 → no_value.
     ``extra['normal_approximation_ok']`` flags small or dominated windows.
 
     References: Seillier-Moiseiwitsch & Dawid (1993), JASA 88(421):355–359
     (standardised scores; this exact log-score form is [M, from memory]);
     METHODS.md section 1 [D].
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     y, p, w = d.y, d.p, d.w
     x = clipped_logit(p)
     v = p * (1.0 - p) * x * x  # one observation's null-variance term
@@ -256,12 +256,12 @@ def log_loss_skill(
     operational skill. ``extra['reference']`` records which.
     1 = perfect, 0 = no better than the base rate, < 0 = worse.
 
-    Edge cases: empty, or one class with π = ȳ (LL_ref = 0) → undefined.
+    Edge cases: empty, or one class with π = ȳ (LL_ref = 0) → no_value.
 
     References: McFadden (1974) [M, from memory]; Good (1952) [M];
     METHODS.md section 1.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     return log_loss_skill_from_sums(d.n, d.n1, float(d.w @ log_loss_terms(d.y, d.p)), pi0=pi0)
 
 
@@ -289,7 +289,7 @@ def brier_from_moments(
     """
     extra = {} if Spq is None else {"expected_if_calibrated": Spq / n if n > 0 else None}
     if n <= 0:
-        return missing(Status.UNDEFINED, _EMPTY, n=0.0)
+        return missing(Status.NO_VALUE, _EMPTY, n=0.0)
     bs = Sse / n
     var = variance_from_sums(n, Sse, Sse2)
     se = math.sqrt(var / n) if math.isfinite(var) else None
@@ -306,7 +306,7 @@ def brier_score(
     the value expected if y_i ~ Bernoulli(p_i). Same number as
     ``sklearn.metrics.brier_score_loss`` for binary input (range [0, 1]).
 
-    Edge cases: empty → undefined; one class is fine.
+    Edge cases: empty → no_value; one class is fine.
 
     Hand check: y = (1, 0), p = (0.2, 0.2) → (0.64 + 0.04)/2 = 0.34.
 
@@ -314,7 +314,7 @@ def brier_score(
     Bradley, Schwartz & Hashino (2008), Weather and Forecasting 23(5):992–1006
     (sampling variance); METHODS.md section 2.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     se2 = (d.p - d.y) ** 2
     return brier_from_moments(
         d.n, float(d.w @ se2), float(d.w @ (se2 * se2)), Spq=float(d.w @ (d.p * (1.0 - d.p)))
@@ -324,7 +324,7 @@ def brier_score(
 def expected_brier_from_sums(n: float, Spq: float, Svar: float) -> Estimate:
     """E0[BS] = Spq/n with null SD sqrt(Svar)/n, Svar = Σ(1 − 2p)² p(1 − p)."""
     if n <= 0:
-        return missing(Status.UNDEFINED, _EMPTY, n=0.0)
+        return missing(Status.NO_VALUE, _EMPTY, n=0.0)
     return estimate(Spq / n, se=math.sqrt(max(Svar, 0.0)) / n, n=n)
 
 
@@ -341,7 +341,7 @@ def expected_brier(
     Rufibach (2010), J Clin Epidemiol 63(8):938–939; METHODS.md section 2.
     """
     if y_true is not None:
-        d = as_labelled(y_true, y_proba, sample_weight)
+        d = as_labeled(y_true, y_proba, sample_weight)
         p, w = d.p, d.w
     else:
         s = as_scores(y_proba, sample_weight)
@@ -372,13 +372,13 @@ def _skill(n: float, n1: float, total: float, pi0: float | None, name: str,
         raise ValueError(f"pi0 must lie in [0, 1], got {pi0!r}")
     reference = "in_window_prevalence" if pi0 is None else "fixed_pi0"
     if n <= 0:
-        return missing(Status.UNDEFINED, _EMPTY, n=0.0, extra={"reference": reference})
+        return missing(Status.NO_VALUE, _EMPTY, n=0.0, extra={"reference": reference})
     ybar = n1 / n
     ref = reference_score(ybar, pi0)
     extra = {"reference": reference, name: total / n, f"{name}_reference": ref, "pi0": pi0,
              "prevalence": ybar}
     if not ref > 0.0:
-        return missing(Status.UNDEFINED, zero_reason, n=n, extra=extra)
+        return missing(Status.NO_VALUE, zero_reason, n=n, extra=extra)
     return estimate(1.0 - (total / n) / ref, n=n, extra=extra)
 
 
@@ -395,10 +395,10 @@ def brier_skill_score(
     Bradley et al. 2008). ``pi0`` given: BS_ref = ȳ(1 − ȳ) + (ȳ − π0)², the Brier
     score of always forecasting π0. ``extra['reference']`` records which.
 
-    Edge cases: empty or BS_ref = 0 (one class with π = ȳ) → undefined.
+    Edge cases: empty or BS_ref = 0 (one class with π = ȳ) → no_value.
 
     References: Bradley, Schwartz & Hashino (2008), Weather and Forecasting
     23(5):992–1006; METHODS.md section 2.
     """
-    d = as_labelled(y_true, y_proba, sample_weight)
+    d = as_labeled(y_true, y_proba, sample_weight)
     return brier_skill_score_from_sums(d.n, d.n1, float(d.w @ ((d.p - d.y) ** 2)), pi0=pi0)

@@ -9,10 +9,10 @@ class c), the sums of METHODS.md 0.2:
 plus the counts of clipped rows and of confident errors (METHODS.md 0.1.4),
 with x = logit(clip(p, ε, 1−ε)), ℓ the clipped per-observation log-loss and
 ε = float64 machine epsilon (what ``sklearn.metrics.log_loss`` uses for
-float64 input). Three classes are kept apart: labelled negative, labelled
-positive and unlabelled. Unlabelled rows store ℓ as if y = 0, because the
+float64 input). Three classes are kept apart: labeled negative, labeled
+positive and unlabeled. Unlabeled rows store ℓ as if y = 0, because the
 only way they enter label metrics is as implicit negatives (METHODS.md 8);
-:meth:`Summary.labelled` decides at query time whether they count.
+:meth:`Summary.labeled` decides at query time whether they count.
 
 Merging is field-wise addition, so it is associative and commutative up to
 float64 rounding, and the empty summary is its identity.
@@ -47,8 +47,8 @@ __all__ = [
     "NEGATIVE",
     "N_BINS",
     "POSITIVE",
-    "UNLABELLED",
-    "LabelledBins",
+    "UNLABELED",
+    "LabeledBins",
     "Summary",
     "bin_index",
     "view",
@@ -59,12 +59,12 @@ FORMAT_VERSION = 1
 # y_state encoding accepted by Summary.from_arrays.
 POSITIVE = 1
 NEGATIVE = 0
-UNLABELLED = -1
-_N_CLASSES = 3  # internal class index: 0 negative, 1 positive, 2 unlabelled
+UNLABELED = -1
+_N_CLASSES = 3  # internal class index: 0 negative, 1 positive, 2 unlabeled
 
 # The 11 sums of METHODS.md 0.2, then two counts it asks to report beside log-loss
 # (0.1.4): rows with p clipped (p < ε or p > 1 − ε) and confident errors (y = 1 with
-# p < 1e-6, y = 0 — or unlabelled — with p > 1 − 1e-6).
+# p < 1e-6, y = 0 — or unlabeled — with p > 1 − 1e-6).
 FIELDS = ("n", "s1", "s2", "s3", "s4", "sx", "sxx", "sl", "sll", "sh", "sv", "n_clip", "n_conf")
 CONFIDENT_ERROR_THRESHOLD = 1e-6
 N_FIELDS = len(FIELDS)
@@ -108,7 +108,7 @@ def _row_fields(p: np.ndarray, y_loss: np.ndarray) -> Iterator[np.ndarray]:
     """Per-row values of every field, one column at a time in :data:`FIELDS` order
     (one at a time so that only a few row-length temporaries are alive).
 
-    ``y_loss`` is 1 for positives and 0 for negatives and unlabelled rows.
+    ``y_loss`` is 1 for positives and 0 for negatives and unlabeled rows.
     """
     yield np.ones_like(p)
     yield p
@@ -136,7 +136,7 @@ def _row_fields(p: np.ndarray, y_loss: np.ndarray) -> Iterator[np.ndarray]:
 
 
 @dataclass(frozen=True, slots=True)
-class LabelledBins:
+class LabeledBins:
     """The two-class view a label metric needs: per fine bin, positives and negatives.
 
     ``bins`` are sorted fine-bin ids where at least one class is non-empty;
@@ -195,7 +195,7 @@ class Summary:
         """Summarise predictions.
 
         ``y_state`` per row: :data:`POSITIVE` (1), :data:`NEGATIVE` (0) or
-        :data:`UNLABELLED` (−1, no outcome yet). ``sample_weight`` are frequency
+        :data:`UNLABELED` (−1, no outcome yet). ``sample_weight`` are frequency
         weights (non-negative): every sum is weighted and n becomes Σw.
         Rows are processed in chunks so temporaries stay small; chunk totals
         are added with Neumaier compensation.
@@ -206,8 +206,8 @@ class Summary:
             raise ValueError("y_proba and y_state must have the same length")
         if p.size and not (np.all(np.isfinite(p)) and p.min() >= 0.0 and p.max() <= 1.0):
             raise ValueError("y_proba must be finite and within [0, 1]")
-        if s.size and not np.all(np.isin(s, (POSITIVE, NEGATIVE, UNLABELLED))):
-            raise ValueError("y_state must be 1 (positive), 0 (negative) or -1 (unlabelled)")
+        if s.size and not np.all(np.isin(s, (POSITIVE, NEGATIVE, UNLABELED))):
+            raise ValueError("y_state must be 1 (positive), 0 (negative) or -1 (unlabeled)")
         w = None
         if sample_weight is not None:
             w = np.asarray(sample_weight, dtype=np.float64).ravel()
@@ -218,7 +218,7 @@ class Summary:
         for start in range(0, p.size, _CHUNK_ROWS):
             sl = slice(start, start + _CHUNK_ROWS)
             pc, sc = p[sl], s[sl]
-            cls_idx = np.where(sc == UNLABELLED, 2, sc).astype(np.int64)
+            cls_idx = np.where(sc == UNLABELED, 2, sc).astype(np.int64)
             cell = bin_index(pc) * _N_CLASSES + cls_idx
             wc = None if w is None else w[sl]
             part = np.empty_like(total)
@@ -276,7 +276,7 @@ class Summary:
 
     @property
     def cells(self) -> np.ndarray:
-        """Sorted cell ids, cell = fine bin × 3 + class (0 neg, 1 pos, 2 unlabelled)."""
+        """Sorted cell ids, cell = fine bin × 3 + class (0 neg, 1 pos, 2 unlabeled)."""
         return self._cells
 
     @property
@@ -288,15 +288,15 @@ class Summary:
         return self._cells.size == 0
 
     def class_dense(self) -> np.ndarray:
-        """Dense (N_BINS, 3, N_FIELDS) array; classes ordered negative, positive, unlabelled."""
+        """Dense (N_BINS, 3, N_FIELDS) array; classes ordered negative, positive, unlabeled."""
         dense = np.zeros((_N_CELLS, N_FIELDS))
         dense[self._cells] = self._fields
         return dense.reshape(N_BINS, _N_CLASSES, N_FIELDS)
 
     def counts(self) -> dict[str, float]:
-        """Totals n per class: ``positive``, ``negative``, ``unlabelled``."""
+        """Totals n per class: ``positive``, ``negative``, ``unlabeled``."""
         n = np.bincount(self._cells % _N_CLASSES, weights=self._fields[:, 0], minlength=3)
-        return {"negative": float(n[0]), "positive": float(n[1]), "unlabelled": float(n[2])}
+        return {"negative": float(n[0]), "positive": float(n[1]), "unlabeled": float(n[2])}
 
     def all_rows(self) -> tuple[np.ndarray, np.ndarray]:
         """(bins, fields) over every class, for statistics that need no label."""
@@ -304,14 +304,14 @@ class Summary:
         bins = np.flatnonzero(dense[:, 0] > 0)
         return bins, dense[bins]
 
-    def labelled(self, implicit_negatives: bool) -> LabelledBins:
-        """Two-class view. With ``implicit_negatives`` unlabelled rows count as y = 0
+    def labeled(self, implicit_negatives: bool) -> LabeledBins:
+        """Two-class view. With ``implicit_negatives`` unlabeled rows count as y = 0
         (their loss fields were stored as if y = 0); otherwise they are left out."""
         dense = self.class_dense()
         neg = dense[:, 0] + dense[:, 2] if implicit_negatives else dense[:, 0]
         pos = dense[:, 1]
         bins = np.flatnonzero((pos[:, 0] + neg[:, 0]) > 0)
-        return LabelledBins(bins=bins, pos=pos[bins], neg=neg[bins])
+        return LabeledBins(bins=bins, pos=pos[bins], neg=neg[bins])
 
     # ------------------------------------------------------------------ storage
     def to_bytes(self) -> bytes:
@@ -356,11 +356,11 @@ class Summary:
     def __repr__(self) -> str:
         c = self.counts()
         return (f"Summary(cells={self._cells.size}, positive={c['positive']:g}, "
-                f"negative={c['negative']:g}, unlabelled={c['unlabelled']:g})")
+                f"negative={c['negative']:g}, unlabeled={c['unlabeled']:g})")
 
 
-def view(data: Summary | LabelledBins, implicit_negatives: bool = False) -> LabelledBins:
+def view(data: Summary | LabeledBins, implicit_negatives: bool = False) -> LabeledBins:
     """The two-class view of ``data``; a view is returned unchanged."""
-    if isinstance(data, LabelledBins):
+    if isinstance(data, LabeledBins):
         return data
-    return data.labelled(implicit_negatives)
+    return data.labeled(implicit_negatives)

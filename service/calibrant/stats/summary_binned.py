@@ -42,7 +42,7 @@ from calibrant.stats.recalibration import (
 )
 from calibrant.stats.reliability import ReliabilityDiagram, reliability_from_bin_sums
 from calibrant.stats.result import Estimate, Status
-from calibrant.stats.summary import EDGES_P, F, LabelledBins, Summary, view
+from calibrant.stats.summary import EDGES_P, F, LabeledBins, Summary, view
 
 __all__ = [
     "auc",
@@ -73,12 +73,12 @@ def _check_aligned(n_bins: int) -> int:
 
 
 def coarse_bins(
-    v: LabelledBins, *, n_bins: int = 10, strategy: str = "uniform"
+    v: LabeledBins, *, n_bins: int = 10, strategy: str = "uniform"
 ) -> tuple[np.ndarray, np.ndarray]:
     """(coarse index of every fine bin in ``v.bins``, coarse edges in p).
 
     ``uniform``: [k/B, (k+1)/B), last bin closed; B must divide 20 so every
-    edge is a fine edge (exact). ``quantile``: the B-quantiles of the labelled
+    edge is a fine edge (exact). ``quantile``: the B-quantiles of the labeled
     p distribution snapped to the fine edge whose cumulative share is nearest;
     edges that snap together merge bins (the returned edges say which).
     """
@@ -104,7 +104,7 @@ def coarse_bins(
     return idx, np.concatenate([[0.0], inner, [1.0]])
 
 
-def _coarse_sums(v: LabelledBins, idx: np.ndarray, k: int) -> dict[str, np.ndarray]:
+def _coarse_sums(v: LabeledBins, idx: np.ndarray, k: int) -> dict[str, np.ndarray]:
     def agg(values: np.ndarray) -> np.ndarray:
         return np.bincount(idx, weights=values, minlength=k)
 
@@ -119,7 +119,7 @@ def _coarse_sums(v: LabelledBins, idx: np.ndarray, k: int) -> dict[str, np.ndarr
 
 
 # ----------------------------------------------------------------------------- binned calibration
-def murphy_decomposition(data: Summary | LabelledBins, *, n_bins: int = 10,
+def murphy_decomposition(data: Summary | LabeledBins, *, n_bins: int = 10,
                          implicit_negatives: bool = False) -> BrierDecomposition:
     """Murphy (1973) + Stephenson et al. (2008) decomposition on [k/B, (k+1)/B) bins; exact."""
     v = view(data, implicit_negatives)
@@ -128,7 +128,7 @@ def murphy_decomposition(data: Summary | LabelledBins, *, n_bins: int = 10,
     return murphy_from_bin_sums(s["n"], s["sp"], s["sp2"], s["o"], s["spy"])
 
 
-def ece(data: Summary | LabelledBins, *, n_bins: int = 10, strategy: str = "uniform",
+def ece(data: Summary | LabeledBins, *, n_bins: int = 10, strategy: str = "uniform",
         implicit_negatives: bool = False) -> Estimate:
     """Positive-class ECE (MCE in ``extra``); exact for uniform bins, snapped edges for quantile.
 
@@ -144,7 +144,7 @@ def ece(data: Summary | LabelledBins, *, n_bins: int = 10, strategy: str = "unif
     return res
 
 
-def reliability_diagram(data: Summary | LabelledBins, *, n_bins: int = 10,
+def reliability_diagram(data: Summary | LabeledBins, *, n_bins: int = 10,
                         strategy: str = "uniform", implicit_negatives: bool = False
                         ) -> ReliabilityDiagram:
     """Reliability-diagram bins (mean p, event rate, Wilson 95 % interval) from the summary."""
@@ -155,7 +155,7 @@ def reliability_diagram(data: Summary | LabelledBins, *, n_bins: int = 10,
                                      closed="left")
 
 
-def _bin_rows(v: LabelledBins) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _bin_rows(v: LabeledBins) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """One row per (bin, class) with weight > 0: (y, the class's mean logit in the bin, weight).
 
     Each class at its own mean logit keeps Σ y·x exact, so the GLM's score
@@ -175,18 +175,18 @@ def _bin_rows(v: LabelledBins) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return y[keep], x[keep], w[keep]
 
 
-def calibration_intercept(data: Summary | LabelledBins, *, implicit_negatives: bool = False
+def calibration_intercept(data: Summary | LabeledBins, *, implicit_negatives: bool = False
                           ) -> Estimate:
     """Calibration-in-the-large intercept: offset GLM on per-class bin-mean logits, counts as weights."""
     v = view(data, implicit_negatives)
     y, x, w = _bin_rows(v)
     res = calibration_intercept_from_logits(y, x, sample_weight=w)
-    if res.ok:
+    if res.measured:
         res.extra["approximation"] = "per-class bin-mean logits (METHODS.md 3, from the summary)"
     return res
 
 
-def logistic_recalibration(data: Summary | LabelledBins, *, implicit_negatives: bool = False,
+def logistic_recalibration(data: Summary | LabeledBins, *, implicit_negatives: bool = False,
                            min_events: int = MIN_EVENTS_SLOPE) -> Recalibration:
     """Calibration slope and free-slope intercept (Cox 1958) on per-class bin-mean logits."""
     v = view(data, implicit_negatives)
@@ -195,7 +195,7 @@ def logistic_recalibration(data: Summary | LabelledBins, *, implicit_negatives: 
 
 
 # ----------------------------------------------------------------------------- discrimination
-def auc(data: Summary | LabelledBins, *, implicit_negatives: bool = False,
+def auc(data: Summary | LabeledBins, *, implicit_negatives: bool = False,
         min_per_class: int = MIN_PER_CLASS_INTERVAL) -> Estimate:
     """ROC AUC with DeLong SE and logit interval, fine bins as ties.
 
@@ -209,14 +209,14 @@ def auc(data: Summary | LabelledBins, *, implicit_negatives: bool = False,
     return res
 
 
-def average_precision(data: Summary | LabelledBins, *, implicit_negatives: bool = False
+def average_precision(data: Summary | LabeledBins, *, implicit_negatives: bool = False
                       ) -> Estimate:
     """Average precision (sklearn's step definition), fine bins as tied scores."""
     v = view(data, implicit_negatives)
     return average_precision_from_class_counts(v.neg[:, F["n"]], v.pos[:, F["n"]])
 
 
-def integrated_calibration_index(data: Summary | LabelledBins, *,
+def integrated_calibration_index(data: Summary | LabeledBins, *,
                                  implicit_negatives: bool = False,
                                  min_events: int = ICI_MIN_EVENTS) -> SmoothCalibration:
     """ICI / E50 / E90 / Emax with the array version's lowess fitted to fine-bin means.
@@ -229,12 +229,12 @@ def integrated_calibration_index(data: Summary | LabelledBins, *,
     n1, n0 = float(n1k.sum()), float(n0k.sum())
     nk = n1k + n0k
     if n1 + n0 <= 0:
-        return SmoothCalibration(Status.UNDEFINED, "empty window", 0.0)
+        return SmoothCalibration(Status.NO_VALUE, "empty window", 0.0)
     if n1 <= 0 or n0 <= 0:
-        return SmoothCalibration(Status.UNDEFINED, "one class only", n1 + n0)
+        return SmoothCalibration(Status.NO_VALUE, "one class only", n1 + n0)
     if n1 < min_events or n0 < min_events:
         return SmoothCalibration(
-            Status.INSUFFICIENT_DATA,
+            Status.TOO_FEW_CASES,
             f"need at least {min_events} events and {min_events} non-events "
             f"(have {n1:g} and {n0:g})", n1 + n0)
     fbar = (v.pos[:, F["s1"]] + v.neg[:, F["s1"]]) / nk

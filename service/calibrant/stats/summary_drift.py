@@ -96,7 +96,7 @@ def score_drift(
     """
     ref_fine, cur_fine = _fine_counts(reference), _fine_counts(current)
     if ref_fine.sum() <= 0 or cur_fine.sum() <= 0:
-        m = missing(Status.UNDEFINED, "reference or current summary is empty")
+        m = missing(Status.NO_VALUE, "reference or current summary is empty")
         return ScoreDrift(m, m, m, bins)
     if bins is None:
         bins = frozen_bins(reference, n_bins=n_bins)
@@ -110,7 +110,7 @@ def score_drift(
     js = js_distance_from_counts(r, c, n_null=n_null, seed=seed)
     js.extra.update(edges=edges)
     ks = ks_from_counts(ref_fine, cur_fine)
-    if ks.ok:
+    if ks.measured:
         mass = max(float((ref_fine / ref_fine.sum()).max()), float((cur_fine / cur_fine.sum()).max()))
         ks.extra["max_shortfall"] = mass
     return ScoreDrift(p, ks, js, bins)

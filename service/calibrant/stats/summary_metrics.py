@@ -6,8 +6,8 @@ so the summary and the array path agree to float64 rounding (METHODS.md 0.2:
 n, O, E, O/E, log-loss and its SE, E0, SD0, z_LL, Brier and its SE,
 Spiegelhalter's z are exact from the bucket).
 
-Label metrics take a :class:`~calibrant.stats.summary.LabelledBins` view, or a
-summary plus ``implicit_negatives`` (whether unlabelled rows count as y = 0 or
+Label metrics take a :class:`~calibrant.stats.summary.LabeledBins` view, or a
+summary plus ``implicit_negatives`` (whether unlabeled rows count as y = 0 or
 are left out; METHODS.md 8). Binned statistics live in
 :mod:`calibrant.stats.summary_binned`, score drift in
 :mod:`calibrant.stats.summary_drift`; :func:`all_metrics` gathers everything
@@ -37,7 +37,7 @@ from calibrant.stats.scoring import (
     log_loss_skill_from_sums,
     squared_error_sums_from_power_sums,
 )
-from calibrant.stats.summary import F, LabelledBins, Summary, view
+from calibrant.stats.summary import F, LabeledBins, Summary, view
 from calibrant.stats.summary_drift import psi
 
 __all__ = [
@@ -51,7 +51,7 @@ __all__ = [
     "log_loss_calibration_z",
     "log_loss_skill",
     "mean_probability",
-    "n_labelled",
+    "n_labeled",
     "n_predictions",
     "observed_expected",
     "observed_rate",
@@ -62,7 +62,7 @@ __all__ = [
 class _Totals:
     """Class totals of every field of a two-class view (pos, neg, all)."""
 
-    def __init__(self, v: LabelledBins) -> None:
+    def __init__(self, v: LabeledBins) -> None:
         self.pos = v.pos.sum(axis=0)
         self.neg = v.neg.sum(axis=0)
         self.all = self.pos + self.neg
@@ -80,22 +80,22 @@ class _Totals:
         return self["pos", "n"]
 
 
-def _score_totals(data: Summary | LabelledBins) -> _Totals:
-    """Totals over every prediction of a summary, or over the labelled rows of a view."""
-    if isinstance(data, LabelledBins):
+def _score_totals(data: Summary | LabeledBins) -> _Totals:
+    """Totals over every prediction of a summary, or over the labeled rows of a view."""
+    if isinstance(data, LabeledBins):
         return _Totals(data)
     bins, fields = data.all_rows()
-    return _Totals(LabelledBins(bins=bins, pos=fields * 0.0, neg=fields))
+    return _Totals(LabeledBins(bins=bins, pos=fields * 0.0, neg=fields))
 
 
 # ----------------------------------------------------------------------------- counts
 def n_predictions(summary: Summary) -> Estimate:
-    """Number (Σ weight) of predictions, labelled or not."""
+    """Number (Σ weight) of predictions, labeled or not."""
     n = sum(summary.counts().values())
     return estimate(float(n), n=float(n))
 
 
-def n_labelled(summary: Summary) -> Estimate:
+def n_labeled(summary: Summary) -> Estimate:
     """Number of predictions with an outcome (positive or negative label)."""
     c = summary.counts()
     n = c["positive"] + c["negative"]
@@ -103,24 +103,24 @@ def n_labelled(summary: Summary) -> Estimate:
 
 
 def label_coverage(summary: Summary) -> Estimate:
-    """Share of predictions that have an outcome: n_labelled / n_predictions (no interval:
+    """Share of predictions that have an outcome: n_labeled / n_predictions (no interval:
     it describes the window, it is not an estimate)."""
     c = summary.counts()
     total = sum(c.values())
     if total <= 0:
-        return missing(Status.UNDEFINED, "no predictions in the window", n=0.0)
+        return missing(Status.NO_VALUE, "no predictions in the window", n=0.0)
     return estimate((c["positive"] + c["negative"]) / total, n=total)
 
 
-def mean_probability(data: Summary | LabelledBins) -> Estimate:
+def mean_probability(data: Summary | LabeledBins) -> Estimate:
     """Mean predicted probability S1/n with SE sd(p)/√n (ddof 1) and normal 95 % interval.
 
-    A summary gives every prediction (no labels needed); a view gives its labelled rows.
+    A summary gives every prediction (no labels needed); a view gives its labeled rows.
     """
     t = _score_totals(data)
     n = t.n
     if n <= 0:
-        return missing(Status.UNDEFINED, "empty window", n=0.0)
+        return missing(Status.NO_VALUE, "empty window", n=0.0)
     mean = t["all", "s1"] / n
     if n <= 1:
         return estimate(mean, n=n)
@@ -129,16 +129,16 @@ def mean_probability(data: Summary | LabelledBins) -> Estimate:
     return estimate(mean, se=se, ci=(mean - Z95 * se, mean + Z95 * se), n=n)
 
 
-def observed_rate(data: Summary | LabelledBins, *, implicit_negatives: bool = False) -> Estimate:
+def observed_rate(data: Summary | LabeledBins, *, implicit_negatives: bool = False) -> Estimate:
     """Event rate n1/n with a Wilson 95 % interval (Wilson 1927, JASA 22(158):209–212)."""
     t = _Totals(view(data, implicit_negatives))
     if t.n <= 0:
-        return missing(Status.UNDEFINED, "no labelled predictions", n=0.0)
+        return missing(Status.NO_VALUE, "no labeled predictions", n=0.0)
     return estimate(t.n1 / t.n, ci=wilson_interval(t.n1, t.n), n=t.n,
                     extra={"n_events": t.n1, "interval": "wilson_95"})
 
 
-def observed_expected(data: Summary | LabelledBins, *, implicit_negatives: bool = False
+def observed_expected(data: Summary | LabeledBins, *, implicit_negatives: bool = False
                       ) -> Estimate:
     """O/E = Σy/Σp with exp(ln(O/E) ± 1.96 sqrt(1/O − 1/n)) and the O − E z (METHODS.md 3)."""
     t = _Totals(view(data, implicit_negatives))
@@ -146,7 +146,7 @@ def observed_expected(data: Summary | LabelledBins, *, implicit_negatives: bool 
 
 
 # ----------------------------------------------------------------------------- log-loss
-def log_loss(data: Summary | LabelledBins, *, implicit_negatives: bool = False) -> Estimate:
+def log_loss(data: Summary | LabeledBins, *, implicit_negatives: bool = False) -> Estimate:
     """Mean clipped log-loss Sl/n, SE sqrt((Sll − Sl²/n)/(n − 1)/n), normal 95 % interval.
 
     Exact from the bucket (METHODS.md 1 and 0.2); ``extra`` carries ε and the
@@ -162,16 +162,16 @@ def _count(x: float) -> float | int:
     return int(x) if float(x).is_integer() else x
 
 
-def expected_log_loss(data: Summary | LabelledBins) -> Estimate:
+def expected_log_loss(data: Summary | LabeledBins) -> Estimate:
     """E0[LL] = ΣH(p)/n with null SD sqrt(Σp(1−p)x²)/n as ``se`` (METHODS.md 1, [D]).
 
-    Needs no labels: a summary gives every prediction, a view its labelled rows.
+    Needs no labels: a summary gives every prediction, a view its labeled rows.
     """
     t = _score_totals(data)
     return expected_log_loss_from_sums(t.n, t["all", "sh"], t["all", "sv"])
 
 
-def log_loss_calibration_z(data: Summary | LabelledBins, *, implicit_negatives: bool = False
+def log_loss_calibration_z(data: Summary | LabeledBins, *, implicit_negatives: bool = False
                            ) -> Estimate:
     """z_LL = (Sl − SH)/sqrt(Sv) with two-sided normal p (METHODS.md 1 and 0.3).
 
@@ -182,7 +182,7 @@ def log_loss_calibration_z(data: Summary | LabelledBins, *, implicit_negatives: 
     return log_loss_calibration_z_from_sums(t.n, t["all", "sl"], t["all", "sh"], t["all", "sv"])
 
 
-def log_loss_skill(data: Summary | LabelledBins, *, implicit_negatives: bool = False,
+def log_loss_skill(data: Summary | LabeledBins, *, implicit_negatives: bool = False,
                    pi0: float | None = None) -> Estimate:
     """1 − LL/LL_ref against the in-window prevalence (``pi0=None``) or a fixed π0."""
     t = _Totals(view(data, implicit_negatives))
@@ -195,28 +195,28 @@ def _squared_error_sums(t: _Totals) -> tuple[float, float]:
         t.n1, t["pos", "s1"], t["pos", "s2"], t["pos", "s3"], t["all", "s2"], t["all", "s4"])
 
 
-def brier(data: Summary | LabelledBins, *, implicit_negatives: bool = False) -> Estimate:
+def brier(data: Summary | LabeledBins, *, implicit_negatives: bool = False) -> Estimate:
     """Brier score Σ(p − y)²/n with SE from Σ(p − y)⁴ (both from S1..S4 per class; exact)."""
     t = _Totals(view(data, implicit_negatives))
     sse, sse2 = _squared_error_sums(t)
     return brier_from_moments(t.n, sse, sse2, Spq=t["all", "s1"] - t["all", "s2"])
 
 
-def expected_brier(data: Summary | LabelledBins) -> Estimate:
+def expected_brier(data: Summary | LabeledBins) -> Estimate:
     """E0[BS] = Σp(1 − p)/n with null SD sqrt(Σ(1 − 2p)²p(1 − p))/n as ``se`` (no labels)."""
     t = _score_totals(data)
     s1, s2, s3, s4 = (t["all", f] for f in ("s1", "s2", "s3", "s4"))
     return expected_brier_from_sums(t.n, s1 - s2, s1 - 5.0 * s2 + 8.0 * s3 - 4.0 * s4)
 
 
-def brier_skill_score(data: Summary | LabelledBins, *, implicit_negatives: bool = False,
+def brier_skill_score(data: Summary | LabeledBins, *, implicit_negatives: bool = False,
                       pi0: float | None = None) -> Estimate:
     """BSS = 1 − BS/BS_ref (in-window prevalence or fixed π0; Bradley et al. 2008)."""
     t = _Totals(view(data, implicit_negatives))
     return brier_skill_score_from_sums(t.n, t.n1, _squared_error_sums(t)[0], pi0=pi0)
 
 
-def spiegelhalter_z(data: Summary | LabelledBins, *, implicit_negatives: bool = False
+def spiegelhalter_z(data: Summary | LabeledBins, *, implicit_negatives: bool = False
                     ) -> Estimate:
     """Spiegelhalter's z from power sums: numerator n1 − 2Σ_{y=1}p − Σp + 2Σp²,
     variance Σ(p − 5p² + 8p³ − 4p⁴) (METHODS.md 4.1; Spiegelhalter 1986).
@@ -241,18 +241,18 @@ def all_metrics(
 ) -> dict[str, Estimate]:
     """Every window metric the API reports, keyed by its API name.
 
-    Label metrics use positives and negatives, plus unlabelled rows as y = 0 when
+    Label metrics use positives and negatives, plus unlabeled rows as y = 0 when
     ``implicit_negatives``. ``n_immature`` is not here: maturity is the caller's
     (the summary does not know the clock). ``brier_*`` components use
     ``n_bins`` equal-width bins (exact); ``ece`` the same bins; ``psi`` needs
     ``reference`` (else undefined).
     """
-    v = summary.labelled(implicit_negatives)
+    v = summary.labeled(implicit_negatives)
     decomposition = binned.murphy_decomposition(v, n_bins=n_bins)
     recal = binned.logistic_recalibration(v)
     out: dict[str, Estimate] = {
         "n_predictions": n_predictions(summary),
-        "n_labeled": n_labelled(summary),
+        "n_labeled": n_labeled(summary),
         "label_coverage": label_coverage(summary),
         "mean_probability": mean_probability(summary),
         "observed_rate": observed_rate(v),
@@ -265,7 +265,7 @@ def all_metrics(
                       ("brier_uncertainty", "uncertainty")):
         value = getattr(decomposition, attr)
         out[key] = (estimate(value, n=decomposition.n, extra={"n_bins": n_bins})
-                    if decomposition.ok else missing(decomposition.status, decomposition.reason,
+                    if decomposition.measured else missing(decomposition.status, decomposition.reason,
                                                      n=decomposition.n))
     out["calibration_intercept"] = binned.calibration_intercept(v)
     out["calibration_slope"] = recal.slope
@@ -273,5 +273,5 @@ def all_metrics(
     out["ece"] = binned.ece(v, n_bins=n_bins)
     out["auc"] = binned.auc(v)
     out["psi"] = (psi(summary, reference) if reference is not None
-                  else missing(Status.UNDEFINED, "no reference summary given"))
+                  else missing(Status.NO_VALUE, "no reference summary given"))
     return out

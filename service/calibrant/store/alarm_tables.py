@@ -60,7 +60,7 @@ class ChartStream(Base):
     watermark_case: Mapped[str | None] = mapped_column(case_id_type(), nullable=True)
     consumed: Mapped[int] = mapped_column(Integer, default=0)  # cases since the stream began
     skipped_late: Mapped[int] = mapped_column(Integer, default=0)  # since the last reset
-    unlabelled_at_maturity: Mapped[int] = mapped_column(Integer, default=0)
+    unlabeled_at_maturity: Mapped[int] = mapped_column(Integer, default=0)
     # Recent risks and their maturity times (float64 pairs) for designing h.
     recent: Mapped[bytes] = mapped_column(LargeBinary, default=b"")
     # The last few (matured_at, S) points, the "chart path" shown with an alarm.
@@ -73,7 +73,7 @@ class ChartStream(Base):
 
 
 class Alarm(Base):
-    """An alarm: what fired, on which stream, with which evidence, and its state."""
+    """An alarm: what crossed, on which stream, with which evidence, and its state."""
 
     __tablename__ = "alarms"
 

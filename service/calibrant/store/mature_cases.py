@@ -37,7 +37,7 @@ def floor_hour(t: datetime) -> datetime:
 
 @dataclass(frozen=True, slots=True)
 class MatureCases:
-    """One version's cases in processing order; ``label`` −1 means mature but unlabelled."""
+    """One version's cases in processing order; ``label`` −1 means mature but unlabeled."""
 
     matured_at: list[datetime]
     case_id: list[str]

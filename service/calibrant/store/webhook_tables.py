@@ -30,7 +30,7 @@ class WebhookTarget(Base):
     url: Mapped[str] = mapped_column(Text)
     description: Mapped[str] = mapped_column(Text, default="")
     model_name: Mapped[str | None] = mapped_column(String(64), nullable=True)  # None: every model
-    event_kinds: Mapped[list[str]] = mapped_column(JSON)
+    event_types: Mapped[list[str]] = mapped_column(JSON)
     # Kept in clear: HMAC signing needs the key itself, unlike API keys which are only compared.
     secret: Mapped[str] = mapped_column(String(100))
     consecutive_failures: Mapped[int] = mapped_column(Integer, default=0)

@@ -16,7 +16,7 @@ def create(
     url: str,
     description: str,
     model_name: str | None,
-    event_kinds: list[str],
+    event_types: list[str],
     secret: str,
     now: datetime,
 ) -> WebhookTarget:
@@ -24,7 +24,7 @@ def create(
         url=url,
         description=description,
         model_name=model_name,
-        event_kinds=event_kinds,
+        event_types=event_types,
         secret=secret,
         consecutive_failures=0,
         created_at=now,
@@ -50,7 +50,7 @@ def subscribed(session: Session, kind: str, model_name: str | None) -> list[Webh
     return [
         t
         for t in list_all(session)
-        if kind in t.event_kinds and (t.model_name is None or t.model_name == model_name)
+        if kind in t.event_types and (t.model_name is None or t.model_name == model_name)
     ]
 
 

@@ -74,7 +74,7 @@ async def delete_rule(model: str, rule: str, request: Request, caller: Admin) ->
 
 
 @router.post("/{rule}/backtest", responses=PROBLEM_RESPONSES,
-             summary="When the rule would have fired over [start, end); stores and sends nothing")
+             summary="When the rule would have crossed its limit over [start, end); stores and sends nothing")
 async def run_backtest(model: str, rule: str, request: Request, _caller: Reader,
                        start: Annotated[str | None, Query()] = None,
                        end: Annotated[str | None, Query()] = None) -> dict[str, Any]:
