@@ -39,7 +39,7 @@ def week_sums(p: np.ndarray, y: np.ndarray) -> LogLossSums:
 def fires(p: np.ndarray, q: np.ndarray, rng: np.random.Generator) -> bool:
     """One week with true risks q judged by the rule (scores p)."""
     y = (rng.random(p.size) < q).astype(float)
-    return bool(excess_log_loss(week_sums(p, y), None, PARAMS).fire)
+    return bool(excess_log_loss(week_sums(p, y), None, PARAMS).crossed)
 
 
 def false_alarms(sampler: Sampler, rng: np.random.Generator, weeks: int, volume: int) -> int:
