@@ -3,7 +3,7 @@
 Without an outcome horizon a case is mature once both its score and its
 outcome are known, so a correction carrying a later ``observed_at`` would put
 the case *ahead* of the stream's watermark a second time. The chart's
-processing order is defined once per case (METHODS 7: order of maturity,
+processing order is defined once per case (docs/methods.md §18: order of maturity,
 reproducible), so the correction must be treated like any outcome that
 arrives behind the watermark: counted as skipped-late, not consumed twice.
 With a horizon the case's maturity never depends on its label, which the

@@ -2,10 +2,10 @@
 
 Rule (``score-drift-weekly``): fire when a closed week's PSI against the
 reference exceeds max(χ²_{0.99, B−1} (1/n + 1/m), 0.1) — the no-shift 99 % point
-of METHODS 6.2 for the week's n and the reference's m, floored at the common
+of docs/methods.md §17.2 for the week's n and the reference's m, floored at the common
 0.1 — with at least 100 predictions. The reference is an uploaded Beta(2,8)
 validation set; weeks are Beta(2,8) (no shift) or Beta(4,6) (shifted), with
-the same volume. Expected PSI is the METHODS 6.2 formula in numpy on the raw
+the same volume. Expected PSI is the docs/methods.md §17.2 formula in numpy on the raw
 rows binned at the reference's snapped deciles (``tests.api.test_metrics_reference``);
 the level is scipy's χ² quantile. Each segment holds half the week, so its
 no-shift point exceeds 0.1: the sample-size-aware level decides there.
@@ -47,13 +47,13 @@ def _post(client: TestClient, rng: np.random.Generator) -> pd.DataFrame:
 
 
 def _verdict(reference: np.ndarray, current: np.ndarray, min_psi: float) -> dict:
-    """Fire or not by METHODS 6.2 on every snapping the deciles allow; they must agree."""
+    """Fire or not by docs/methods.md §17.2 on every snapping the deciles allow; they must agree."""
     if current.size < MIN_N:
         return {"fire": None, "n": current.size}
     seen = []
     for edges in snapped_decile_edges(reference):
-        value = psi_on(edges, reference, current)  # source: METHODS 6.2 PSI with ½ per bin, numpy
-        # source: METHODS 6.2, no-shift 99 % point χ²_{0.99,B−1}(1/n + 1/m), scipy.stats.chi2
+        value = psi_on(edges, reference, current)  # source: docs/methods.md §17.2 PSI with ½ per bin, numpy
+        # source: docs/methods.md §17.2, no-shift 99 % point χ²_{0.99,B−1}(1/n + 1/m), scipy.stats.chi2
         null = float(stats.chi2.ppf(1 - LEVEL, edges.size)) * (1 / reference.size + 1 / current.size)
         seen.append((value > max(null, min_psi), value, null))
     assert len({s[0] for s in seen}) == 1, f"verdict depends on the snapping: {seen}"
@@ -109,7 +109,7 @@ def test_drift_rules_fire_on_a_shifted_week_against_the_size_aware_level_and_res
             assert alarm["state"] == "open"  # the small week 2 left it as it was
             assert ev["period_start"].startswith("2026-03-09")
             assert ev["n"] == exp["n"]  # pandas row count
-            assert abs(ev["statistic"] - exp["psi"]) <= 1e-9 * exp["psi"]  # numpy PSI (METHODS 6.2)
+            assert abs(ev["statistic"] - exp["psi"]) <= 1e-9 * exp["psi"]  # numpy PSI (docs/methods.md §17.2)
             assert abs(ev["detail"]["null_level"] - exp["null"]) <= 1e-9 * exp["null"]  # scipy χ²
             assert ev["detail"]["n_reference"] == reference.size
 

@@ -6,7 +6,7 @@ mature predictions (at least 50) have no outcome. It is a deterministic
 condition on the feeds, so every expected figure is counted from the test's own
 rows: the silence from the latest ``scored_at`` the test posted, the share with
 pandas over the predictions whose scored hour is mature (hour end + H ≤ now,
-DESIGN 3) and lies in the 7 days that end with the newest mature hour. It is checked
+docs/architecture.md) and lies in the 7 days that end with the newest mature hour. It is checked
 at every evaluation and resolves itself once the feeds are healthy.
 """
 

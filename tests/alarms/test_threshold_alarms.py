@@ -3,7 +3,7 @@
 Rule (``calibration-slope-weekly``): fire when the slope of a closed, mature
 week lies outside [0.8, 1.2] *and* its 95 % interval excludes 1, with at least
 200 labeled predictions. The truth of each week is built from the model's own
-scores: logit q = β logit p, so β < 1 is an over-confident model (METHODS 3).
+scores: logit q = β logit p, so β < 1 is an over-confident model (docs/methods.md §9).
 Every verdict the test expects comes from statsmodels Logit(y, [1, logit p])
 on the week's rows, chosen with pandas, with its Wald 95 % interval; a week
 whose slope or interval lies within the summary's tolerance of a bound would

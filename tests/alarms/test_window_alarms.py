@@ -1,7 +1,7 @@
 """The weekly excess log-loss rule on closed, mature weeks; backtest; automatic resolution.
 
 Expected behaviour from the definition (excess log-loss D = LL − E0[LL], whose
-null variance is Σ p(1 − p) logit(p)²/n², METHODS.md section 1): calibrated
+null variance is Σ p(1 − p) logit(p)²/n², docs/methods.md §5): calibrated
 predictions keep D near 0 whatever their risk distribution, so a week with a
 different case mix does not fire, while a week whose true odds are 2.5 times
 the model's does; the next calibrated week resolves the alarm.

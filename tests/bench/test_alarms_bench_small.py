@@ -4,7 +4,7 @@ Each seed runs an in-control Beta(2,8) stream of 20,000 cases through an
 upper chart designed (by the service's designer) for ARL0 = 2,000 cases and
 restarted after every signal. A restarted chart is a renewal process, so the
 count over all seeds is close to Poisson with mean 20 × 20,000 / 2,000 = 200
-(run lengths are near geometric, METHODS 7.1). The test asserts the count lies
+(run lengths are near geometric, docs/methods.md §18). The test asserts the count lies
 inside the central 99.9 % Poisson interval for that mean (scipy.stats.poisson),
 i.e. the design is neither optimistic nor wasteful beyond chance.
 

@@ -26,6 +26,6 @@ def test_small_benchmark_figures():
         assert math.isfinite(row.design_ms)
         assert row.discretisation_change < 0.05
         if row.target == 1e4:
-            # METHODS 7.1 step 4: chain and simulation agree; allow 3 Monte-Carlo SE
+            # docs/methods.md §18 step 4: chain and simulation agree; allow 3 Monte-Carlo SE
             # plus 2 % for the chain's discretisation.
             assert abs(row.sim_ratio - 1.0) < 3 * row.sim_ratio_se + 0.02

@@ -3,7 +3,7 @@
 Each simulated week of ``volume`` cases is judged by the service's own decision,
 ``alarms.rules.excess_log_loss`` with the rule's default parameters
 (``ExcessLogLossParams``: level 0.01, minimum relative effect 0.05, 200 labeled,
-10 per class), on the week's exact sums (METHODS 0.2): n, events, Σℓ, ΣH(p) and
+10 per class), on the week's exact sums (docs/methods.md §2): n, events, Σℓ, ΣH(p) and
 Σ p(1 − p) logit(p)², with ℓ the log-loss of a case and H(p) its entropy. No
 labeled reference: the week is compared with calibration, as for a model
 without one.
@@ -29,7 +29,7 @@ PARAMS = ExcessLogLossParams()
 
 
 def week_sums(p: np.ndarray, y: np.ndarray) -> LogLossSums:
-    """The labeled-row sums the rule reads from a week's summary (METHODS 0.2)."""
+    """The labeled-row sums the rule reads from a week's summary (docs/methods.md §2)."""
     loss = -(y * np.log(p) + (1 - y) * np.log1p(-p))
     entropy = -(p * np.log(p) + (1 - p) * np.log1p(-p))
     return LogLossSums(n=float(p.size), n1=float(y.sum()), sl=float(loss.sum()), sh=float(entropy.sum()),

@@ -1,6 +1,6 @@
 """What a period's metrics must be, computed from its raw rows by outside libraries.
 
-Each figure names its source. Tolerances follow METHODS.md 0.2: sums-based
+Each figure names its source. Tolerances follow docs/methods.md §2: sums-based
 statistics are exact from the summary (compared at ~1e-12 relative); the AUC
 treats fine bins as ties, so it may differ by at most the bins-as-ties bound
 ½ Σ_k n1k n0k / (n1 n0); slope and intercept come from per-class bin-mean logits,
@@ -23,15 +23,15 @@ EXACT = 1e-12
 GLM_TOLERANCE = 1e-3
 # How far (relative) the slope fitted from a summary may be from the row-level fit. Each class
 # of a fine bin sits at its own mean logit, so Σ y·x is exact and only log(1 + e^(a+bx)) is
-# approximated, to second order in the bin width (METHODS 0.2). Measured on the synthetic
+# approximated, to second order in the bin width (docs/methods.md §2). Measured on the synthetic
 # traffic's law (expit(N(−0.8, 1.1)), truth expit(0.3 + 0.8x)), 40 seeds each: at most 1.8e-4
 # at n = 500, 2.0e-4 at 2,000, 1.9e-4 at 50,000 — a bias, so it does not shrink with n. The
-# bound is METHODS 0.2's ~1e-3, five times the worst seen; ``binned_slope`` checks the method
+# bound is docs/methods.md §2's ~1e-3, five times the worst seen; ``binned_slope`` checks the method
 # itself tightly.
 SLOPE_TOLERANCE = GLM_TOLERANCE
-MIN_EVENTS_SLOPE = 20  # METHODS.md 3: the slope needs 20 events and 20 non-events
+MIN_EVENTS_SLOPE = 20  # docs/methods.md §9: the slope needs 20 events and 20 non-events
 
-# The fine grid of METHODS.md 0.2, rebuilt here from its definition (not imported):
+# The fine grid of docs/methods.md §2, rebuilt here from its definition (not imported):
 # expit(−16 + 0.05 k), k = 0..640, plus j/20, j = 1..19.
 FINE_EDGES = np.union1d(expit(np.linspace(-16.0, 16.0, 641)), np.arange(1, 20) / 20.0)
 
@@ -41,7 +41,7 @@ def fine_bin(p: np.ndarray) -> np.ndarray:
 
 
 def auc_tie_bound(p: np.ndarray, y: np.ndarray) -> float:
-    """½ Σ_k n1k n0k / (n1 n0): the most the fine-bins-as-ties AUC can be off (METHODS 0.2)."""
+    """½ Σ_k n1k n0k / (n1 n0): the most the fine-bins-as-ties AUC can be off (docs/methods.md §2)."""
     k = fine_bin(p)
     n1k = np.bincount(k[y == 1], minlength=FINE_EDGES.size + 1)
     n0k = np.bincount(k[y == 0], minlength=FINE_EDGES.size + 1)
@@ -78,7 +78,7 @@ def assert_period_matches(period: dict, rows: pd.DataFrame, *, check_glm: bool =
     bound = auc_tie_bound(p, y)
     assert abs(period["auc"] - auc) <= bound + EXACT, (period["auc"], auc, bound)
     if min(y.sum(), (1 - y).sum()) < MIN_EVENTS_SLOPE:
-        # METHODS 3: no slope from fewer than 20 events or non-events
+        # docs/methods.md §9: no slope from fewer than 20 events or non-events
         assert period["calibration_slope"] is None
         assert period["status"]["calibration_slope"]["state"] == "too_few_cases"
     elif check_glm:
@@ -94,7 +94,7 @@ def assert_period_matches(period: dict, rows: pd.DataFrame, *, check_glm: bool =
 
 def binned_slope(p: np.ndarray, y: np.ndarray) -> float:
     """statsmodels GLM Binomial with frequency weights, one row per (fine bin, class) at that
-    class's mean logit in the bin: the METHODS 0.2 recipe, applied by the test to its own
+    class's mean logit in the bin: the docs/methods.md §2 recipe, applied by the test to its own
     binning of the raw rows."""
     x = np.log(p / (1 - p))
     k = fine_bin(p)

@@ -113,7 +113,7 @@ def test_a_late_outcome_reaches_the_day_tier_after_the_next_refresh(db: Database
 
 
 def test_maturity_boundary_inside_a_day_splits_that_day_by_hour(db: Database) -> None:
-    # Horizon 2 days, no lag: an hourly bucket is mature when its end + 2 d <= now (DESIGN 3).
+    # Horizon 2 days, no lag: an hourly bucket is mature when its end + 2 d <= now (docs/architecture.md).
     # With now at 12:00 on day 6, day 4's buckets ending by 12:00 are mature (traffic sits at
     # 00, 11 and 23 h), its 23 h bucket is not: the boundary cuts day 4.
     traffic = make_traffic(n_cases=1500, days=7)

@@ -1,7 +1,7 @@
 """Horizon, lag and implicit negatives on four hand-made predictions, answers worked by hand.
 
 Model: horizon H = 3 days, reporting lag L = 1 day, so an hourly bucket is
-mature when its end + 4 days ≤ now (DESIGN 3).
+mature when its end + 4 days ≤ now (docs/architecture.md, data semantics).
 
     case  p    scored_at (UTC)     bucket end        mature from        outcome
     a     0.2  03-02 10:15         03-02 11:00       03-06 11:00        1

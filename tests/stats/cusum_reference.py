@@ -1,7 +1,7 @@
-"""Reference values for the CUSUM tests and the METHODS synthetic stream.
+"""Reference values for the CUSUM tests and the synthetic stream of the reference recipes.
 
 The numbers live in ``cusum_reference_values.json`` beside this file, with
-their provenance (METHODS.md section 10; the producing scripts and versions).
+their provenance (docs/methods.md §21; the producing scripts and versions).
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ REFERENCE: dict[str, Any] = json.loads(
 
 
 def synthetic_stream() -> tuple[NDArray[np.float64], NDArray[np.int64]]:
-    """METHODS.md section 10 synthetic data: p = expit(x), true logit 0.3 + 0.7 x."""
+    """docs/methods.md §21 synthetic data: p = expit(x), true logit 0.3 + 0.7 x."""
     rng = np.random.default_rng(20240611)
     x = rng.normal(-1.0, 1.2, 2000)
     p = expit(x)
@@ -31,5 +31,5 @@ def synthetic_stream() -> tuple[NDArray[np.float64], NDArray[np.int64]]:
 
 
 def beta_2_8_quantile_points(k: int = 2000) -> NDArray[np.float64]:
-    """Equal-weight Beta(2, 8) points at probabilities (i + ½)/k, as in METHODS 10."""
+    """Equal-weight Beta(2, 8) points at probabilities (i + ½)/k, as in docs/methods.md §21."""
     return beta.ppf((np.arange(k) + 0.5) / k, 2.0, 8.0)

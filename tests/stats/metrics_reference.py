@@ -2,7 +2,7 @@
 
 Values live in ``metrics_reference_values.json`` beside this file, each with
 its producer (library call and version, numpy formula, or paper and table);
-they were copied from METHODS.md section 10 (``check_values.json``). The
+tests/reference/make_reference_values.py recomputes them (docs/methods.md §21). The
 datasets are rebuilt here from their recipes.
 """
 
@@ -28,7 +28,7 @@ def ref(dataset: str, key: str) -> Any:
 
 @cache
 def synthetic() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """METHODS.md 10 synthetic set: (p, y, p_ref); draws in the recipe's order."""
+    """docs/methods.md §21 synthetic set: (p, y, p_ref); draws in the recipe's order."""
     rng = np.random.default_rng(20240611)
     x = rng.normal(-1.0, 1.2, size=2000)
     u = rng.random(2000)
@@ -39,7 +39,7 @@ def synthetic() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 @cache
 def breast_cancer() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """METHODS.md 10 breast-cancer split: (p_test, y_test, p_train); positive = benign."""
+    """docs/methods.md §21 breast-cancer split: (p_test, y_test, p_train); positive = benign."""
     from sklearn.datasets import load_breast_cancer
     from sklearn.linear_model import LogisticRegression
     from sklearn.model_selection import train_test_split

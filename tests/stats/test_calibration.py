@@ -16,7 +16,7 @@ def test_observed_expected(name: str) -> None:
     p, y = dataset(name)
     key = DATASETS[name]
     r = cal.observed_expected(y, p)
-    # source: METHODS.md 10 `O_over_E`, `O_over_E_95ci`, `O_minus_E_z` (numpy formulas)
+    # source: docs/methods.md §21 `O_over_E`, `O_over_E_95ci`, `O_minus_E_z` (numpy formulas)
     assert r.value == pytest.approx(ref(key, "O_over_E"), rel=1e-12)
     # the check value uses z = 1.96, we use norm.ppf(0.975) = 1.959964: 2e-6 relative apart
     assert r.ci == pytest.approx(tuple(ref(key, "O_over_E_95ci")), rel=1e-5)
@@ -40,10 +40,10 @@ def test_spiegelhalter_check_values(name: str) -> None:
     p, y = dataset(name)
     key = DATASETS[name]
     z = cal.spiegelhalter_z(y, p)
-    # source: METHODS.md 10 `spiegelhalter_z` (numpy) and p from scipy.stats.norm.sf
+    # source: docs/methods.md §21 `spiegelhalter_z` (numpy) and p from scipy.stats.norm.sf
     assert z.value == pytest.approx(ref(key, "spiegelhalter_z"), rel=1e-10)
     assert z.extra["p_value"] == pytest.approx(ref(key, "spiegelhalter_p_two_sided"), rel=1e-7)
-    # summary path: power sums give the same z ([D] METHODS.md 4.1)
+    # summary path: power sums give the same z ([D] docs/methods.md §10)
     pos = y == 1
     num, var = cal.spiegelhalter_sums_from_power_sums(
         pos.sum(), p[pos].sum(), p.sum(), (p**2).sum(), (p**3).sum(), (p**4).sum())
@@ -57,7 +57,7 @@ def test_spiegelhalter_published_example() -> None:
     m2 = cal.spiegelhalter_z([1, 0], [0.4, 0.5]).value
     assert round(m1, 2) == REF["published"]["spiegelhalter_rufibach_2010_model1"]["value"]
     assert round(m2, 2) == REF["published"]["spiegelhalter_rufibach_2010_model2"]["value"]
-    # full precision: METHODS.md 10 edge_cases (numpy formula)
+    # full precision: docs/methods.md §21 edge_cases (numpy formula)
     assert m1 == pytest.approx(ref("edge_cases", "spiegelhalter_rufibach_model1"), rel=1e-12)
     assert m2 == pytest.approx(ref("edge_cases", "spiegelhalter_rufibach_model2"), rel=1e-12)
 
@@ -75,7 +75,7 @@ def test_hosmer_lemeshow_check_values(name: str) -> None:
     key = DATASETS[name]
     h = cal.hosmer_lemeshow(y, p, min_expected=0.0)
     r = ref(key, "hosmer_lemeshow_equal_count_groups")
-    # source: METHODS.md 10 `hosmer_lemeshow_equal_count_groups` (numpy; scipy chi2 p-values)
+    # source: docs/methods.md §21 `hosmer_lemeshow_equal_count_groups` (numpy; scipy chi2 p-values)
     assert h.statistic == pytest.approx(r["C"], rel=1e-10)
     assert h.df_development == r["df_development(g-2)"]
     assert h.df_external == r["df_external(g)"]
@@ -83,7 +83,7 @@ def test_hosmer_lemeshow_check_values(name: str) -> None:
     assert h.p_value_external == pytest.approx(r["p_df10"], rel=1e-7)
     assert [t[:2] for t in h.table] == [tuple(map(float, t[:2])) for t in r["table_n_O_E"]]
     q = cal.hosmer_lemeshow(y, p, grouping="quantile", min_expected=0.0)
-    # source: METHODS.md 10 `hosmer_lemeshow_quantile_edges`
+    # source: docs/methods.md §21 `hosmer_lemeshow_quantile_edges`
     assert q.statistic == pytest.approx(ref(key, "hosmer_lemeshow_quantile_edges")["C"], rel=1e-10)
     assert h.p_value_development == pytest.approx(stats.chi2.sf(h.statistic, 8), rel=1e-12)
 

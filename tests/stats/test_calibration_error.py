@@ -1,4 +1,4 @@
-"""ECE / MCE and ICI (calibrant.stats.calibration_error) against sklearn, statsmodels, METHODS 10."""
+"""ECE / MCE and ICI (calibrant.stats.calibration_error) against sklearn, statsmodels, docs/methods.md §21."""
 
 from __future__ import annotations
 
@@ -31,7 +31,7 @@ def test_ece_mce(name: str, strategy: str) -> None:
     # source: sklearn.calibration.calibration_curve + same-rule counts, computed here
     assert e.value == pytest.approx(sk_e, rel=1e-12)
     assert m.value == pytest.approx(sk_m, rel=1e-12)
-    # source: METHODS.md 10 `ece_<strategy>_10`, `mce_<strategy>_10` (sklearn 1.9.1)
+    # source: docs/methods.md §21 `ece_<strategy>_10`, `mce_<strategy>_10` (sklearn 1.9.1)
     assert e.value == pytest.approx(ref(key, f"ece_{strategy}_10"), rel=1e-12)
     assert m.value == pytest.approx(ref(key, f"mce_{strategy}_10"), rel=1e-12)
     assert e.extra["variant"] == "positive_class"
@@ -41,7 +41,7 @@ def test_ece_edge_convention_rounded_scores() -> None:
     p, y, _ = synthetic()
     pr = np.round(p, 2)
     r = ref("edge_cases", "ece_edge_convention_rounded_scores")
-    # source: METHODS.md 10 `ece_edge_convention_rounded_scores` (numpy, both closed sides)
+    # source: docs/methods.md §21 `ece_edge_convention_rounded_scores` (numpy, both closed sides)
     right = ce.expected_calibration_error(y, pr, closed="right").value
     left = ce.expected_calibration_error(y, pr, closed="left").value
     assert right == pytest.approx(r["right_closed_(sklearn)"], rel=1e-12)
@@ -76,7 +76,7 @@ def test_ici_check_values() -> None:
     p, y = dataset("synthetic")
     r = ce.integrated_calibration_index(y, p)
     v = ref("synthetic", "ici_lowess_local_linear")
-    # source: METHODS.md 10 `ici_lowess_local_linear` (statsmodels 0.15 lowess frac=0.75, it=0)
+    # source: docs/methods.md §21 `ici_lowess_local_linear` (statsmodels 0.15 lowess frac=0.75, it=0)
     assert r.ici == pytest.approx(v["ICI"], rel=1e-9)
     assert r.e50 == pytest.approx(v["E50"], rel=1e-9)
     assert r.e90 == pytest.approx(v["E90"], rel=1e-9)
@@ -90,7 +90,7 @@ def test_ici_floor() -> None:
     assert r.ici is None
     forced = ce.integrated_calibration_index(y, p, min_events=0)
     v = ref("breast_cancer_test", "ici_lowess_local_linear")
-    # source: METHODS.md 10 breast-cancer `ici_lowess_local_linear` (statsmodels)
+    # source: docs/methods.md §21 breast-cancer `ici_lowess_local_linear` (statsmodels)
     assert forced.ici == pytest.approx(v["ICI"], rel=1e-8)
     assert forced.emax == pytest.approx(v["Emax"], rel=1e-8)
     assert ce.integrated_calibration_index([0, 0], [0.1, 0.2]).status is Status.NO_VALUE

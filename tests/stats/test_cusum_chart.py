@@ -20,7 +20,7 @@ from calibrant.stats.cusum import (
 
 
 def loop_cusum(p, y, r_a, s0=0.0):
-    """Independent case-by-case recursion of METHODS 7.1, in plain Python."""
+    """Independent case-by-case recursion of docs/methods.md §18, in plain Python."""
     eps = 2.220446049250313e-16
     s, out = s0, []
     for pi, yi in zip(p, y, strict=True):
@@ -32,14 +32,14 @@ def loop_cusum(p, y, r_a, s0=0.0):
 
 
 def test_synthetic_stream_recipe_matches_methods():
-    # METHODS.md section 10: first five p of the synthetic stream.
+    # docs/methods.md §21: first five p of the synthetic stream.
     p, _ = synthetic_stream()
     np.testing.assert_allclose(p[:5], REFERENCE["synthetic_first_five_p"], atol=5e-7)
 
 
 @pytest.mark.parametrize(("key", "r_a"), [("cusum_RA_2", 2.0), ("cusum_RA_0.5", 0.5)])
 def test_synthetic_stream_check_values(key, r_a):
-    # METHODS.md section 10 `cusum_RA_2` / `cusum_RA_0.5` (reference/check_values.json).
+    # docs/methods.md §21 `cusum_RA_2` / `cusum_RA_0.5` (cusum_reference_values.json).
     ref = REFERENCE[key]
     p, y = synthetic_stream()
     step = advance(new_chart(h=ref["h_used"], r_a=r_a), p, y)
@@ -82,7 +82,7 @@ def test_resuming_in_chunks_through_json_equals_one_pass():
         whole.signal_case,
         whole.n_cases,
     )
-    # The signal is reported once, by the batch holding case 524 (METHODS 10).
+    # The signal is reported once, by the batch holding case 524 (docs/methods.md §21).
     assert signals == [523]
 
 
@@ -104,13 +104,13 @@ def test_signal_is_reported_once_until_reset():
 
 
 def test_weights_hand_example():
-    # Hand calculation (METHODS 7.1): p = 0.2, R_A = 2: y=0 -> -ln 1.2, y=1 -> ln 2 - ln 1.2.
+    # Hand calculation (docs/methods.md §18): p = 0.2, R_A = 2: y=0 -> -ln 1.2, y=1 -> ln 2 - ln 1.2.
     w = cusum_weights([0.2, 0.2], [0, 1], 2.0)
     np.testing.assert_allclose(w, [-math.log(1.2), math.log(2.0) - math.log(1.2)], rtol=1e-14)
 
 
 def test_probability_zero_and_one_are_clipped_to_eps():
-    # METHODS 0.1 clipping policy: p in [eps, 1 - eps] with eps = float64 machine epsilon.
+    # docs/methods.md §1.2 clipping policy: p in [eps, 1 - eps] with eps = float64 machine epsilon.
     eps = np.finfo(np.float64).eps
     w = cusum_weights([0.0, 1.0, 0.0, 1.0], [1, 0, 0, 1], 2.0)
     assert np.all(np.isfinite(w))

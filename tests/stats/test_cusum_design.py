@@ -21,8 +21,8 @@ CHARTS = [("upper_RA_2", 2.0), ("lower_RA_0.5", 0.5)]
 
 @pytest.mark.parametrize(("key", "r_a"), CHARTS)
 def test_midpoint_chain_reproduces_reference_chain(key, r_a):
-    # reference/cusum_sim.py markov_arl (midpoint states, 2000 Beta(2,8) quantile points),
-    # recorded in cusum_results.json: ARL0 at the simulated h with 1200 states.
+    # tests/reference/cusum_chain.py (midpoint states, 2000 Beta(2,8) quantile points),
+    # recorded in cusum_reference_values.json: ARL0 at the simulated h with 1200 states.
     ref = BETA[key]
     mix = increment_mix(beta_2_8_quantile_points(), r_a, max_points=2000)
     arl = markov_arl(ref["h_simulation"], mix, 1200, "midpoint")
@@ -31,7 +31,7 @@ def test_midpoint_chain_reproduces_reference_chain(key, r_a):
 
 @pytest.mark.parametrize(("key", "r_a"), CHARTS)
 def test_design_matches_reference_h(key, r_a):
-    # cusum_results.json (reference/cusum_sim.py): Markov h 5.6891 (upper) and
+    # cusum_reference_values.json (tests/reference): Markov h 5.6891 (upper) and
     # 5.4812-5.4848 (lower) for Beta(2,8) risks, target ARL0 10,000; simulation 5.698 / 5.487.
     ref = BETA[key]
     design = design_cusum(beta_2_8_quantile_points(20000), ref["target_arl0"], r_a)
@@ -48,8 +48,8 @@ def test_design_matches_reference_h(key, r_a):
 
 @pytest.mark.parametrize(("key", "r_a"), CHARTS)
 def test_zero_state_arl1_matches_reference(key, r_a):
-    # cusum_results.json: zero-state ARL1, true odds x2 (upper) / x0.5 (lower):
-    # Markov 117.5 / 176.3; simulation 116.6 +- 1.0 / 176.3 +- 1.4 (4000 runs).
+    # cusum_reference_values.json: zero-state ARL1, true odds x2 (upper) / x0.5 (lower),
+    # Markov chain and a 4000-run simulation (tests/reference/cusum_simulation.py).
     ref = BETA[key]
     arl1 = out_of_control_arl(
         ref["h_simulation"], beta_2_8_quantile_points(), r_a, ref["true_odds_ratio"]
@@ -110,7 +110,7 @@ def test_empty_risk_sample_is_a_clear_error():
 
 
 def test_risks_at_zero_and_one_are_clipped_not_rejected():
-    # METHODS 0.1 clipping: p = 0 and p = 1 become eps and 1 - eps.
+    # docs/methods.md §1.2 clipping: p = 0 and p = 1 become eps and 1 - eps.
     risks = np.concatenate([beta_2_8_quantile_points(), [0.0, 1.0]])
     design = design_cusum(risks, 10_000, 2.0)
     assert design.h == pytest.approx(5.689, abs=0.01)

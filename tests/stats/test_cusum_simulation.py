@@ -13,7 +13,7 @@ SEED = 20240612  # fixed and declared so a failure can be replayed
 
 
 def test_simulation_confirms_the_designed_h():
-    # METHODS 7.1 step 3: verify the designed h with fresh paths; tolerance 3 Monte-Carlo SE.
+    # docs/methods.md §18 step 3: verify the designed h with fresh paths; tolerance 3 Monte-Carlo SE.
     risks = beta_2_8_quantile_points(20000)
     design = design_cusum(risks, 10_000, 2.0)
     sim = simulated_arl(risks, 2.0, design.h, n_paths=2000, seed=SEED)
@@ -24,7 +24,7 @@ def test_simulation_confirms_the_designed_h():
 
 @pytest.mark.parametrize(("key", "r_a"), [("upper_RA_2", 2.0), ("lower_RA_0.5", 0.5)])
 def test_zero_state_arl1_agrees_with_reference_simulation(key, r_a):
-    # cusum_results.json (reference/cusum_sim.py, 4000 runs): 116.6 +- 1.0 and 176.3 +- 1.4.
+    # cusum_reference_values.json (tests/reference/cusum_simulation.py, 4000 runs).
     ref = REFERENCE["beta_2_8"][key]
     sim = simulated_arl(
         beta_2_8_quantile_points(),

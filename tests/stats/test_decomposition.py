@@ -1,4 +1,4 @@
-"""Murphy / Stephenson decomposition (calibrant.stats.decomposition) against METHODS.md 10."""
+"""Murphy / Stephenson decomposition (calibrant.stats.decomposition) against docs/methods.md §21."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from calibrant.stats.result import Status
 def test_murphy_check_values(name: str) -> None:
     p, y = dataset(name)
     m = murphy_decomposition(y, p)
-    # source: METHODS.md 10 `murphy_10bins` (numpy; bins [k/10, (k+1)/10), last closed)
+    # source: docs/methods.md §21 `murphy_10bins` (numpy; bins [k/10, (k+1)/10), last closed)
     r = ref(DATASETS[name], "murphy_10bins")
     assert m.reliability == pytest.approx(r["REL"], rel=1e-10)
     assert m.resolution == pytest.approx(r["RES"], rel=1e-10)

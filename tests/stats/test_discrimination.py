@@ -21,7 +21,7 @@ def test_auc_and_delong(name: str) -> None:
     assert r.value == pytest.approx(roc_auc_score(y, p), rel=1e-12)
     u = stats.mannwhitneyu(p[y == 1], p[y == 0]).statistic
     assert r.value == pytest.approx(u / ((y == 1).sum() * (y == 0).sum()), rel=1e-12)
-    # source: METHODS.md 10 `auc_delong_se` (numpy DeLong via midranks), `auc_95ci_logit`
+    # source: docs/methods.md §21 `auc_delong_se` (numpy DeLong via midranks), `auc_95ci_logit`
     assert r.se == pytest.approx(ref(key, "auc_delong_se"), rel=1e-9)
     # the check interval uses z = 1.96 (we use 1.959964)
     assert r.ci == pytest.approx(tuple(ref(key, "auc_95ci_logit")), rel=1e-5)
@@ -33,7 +33,7 @@ def test_auc_ties_count_half() -> None:
     p, y, _ = synthetic()
     pr = np.round(p, 2)
     v = ref("edge_cases", "auc_rounded_scores")
-    # source: METHODS.md 10 `auc_rounded_scores` (sklearn 1.9.1 = midranks 0.72127)
+    # source: docs/methods.md §21 `auc_rounded_scores` (sklearn 1.9.1 = midranks 0.72127)
     assert disc.roc_auc(y, pr).value == pytest.approx(v["sklearn"], rel=1e-12)
     assert disc.roc_auc(y, pr).value == pytest.approx(roc_auc_score(y, pr), rel=1e-12)
 
@@ -66,7 +66,7 @@ def test_average_precision(name: str) -> None:
     p, y = dataset(name)
     key = DATASETS[name]
     r = disc.average_precision(y, p)
-    # source: sklearn.metrics.average_precision_score, computed here, and METHODS.md 10
+    # source: sklearn.metrics.average_precision_score, computed here, and docs/methods.md §21
     assert r.value == pytest.approx(average_precision_score(y, p), rel=1e-12)
     assert r.value == pytest.approx(ref(key, "average_precision"), rel=1e-12)
     assert r.extra["no_skill"] == pytest.approx(ref(key, "average_precision_no_skill"), rel=1e-12)
@@ -75,7 +75,7 @@ def test_average_precision(name: str) -> None:
 def test_average_precision_ties_and_weights() -> None:
     p, y, _ = synthetic()
     pr = np.round(p, 2)
-    # source: METHODS.md 10 `average_precision_rounded_scores` (sklearn 1.9.1)
+    # source: docs/methods.md §21 `average_precision_rounded_scores` (sklearn 1.9.1)
     assert disc.average_precision(y, pr).value == pytest.approx(
         ref("edge_cases", "average_precision_rounded_scores")["sklearn"], rel=1e-12)
     w = np.random.default_rng(4).integers(0, 4, y.size).astype(float)
@@ -84,7 +84,7 @@ def test_average_precision_ties_and_weights() -> None:
 
 
 def test_average_precision_no_events_undefined() -> None:
-    # sklearn 1.9.1 returns 0.0 here (METHODS.md 10 `all_negative_window_behaviour`); we don't
+    # sklearn 1.9.1 returns 0.0 here (docs/methods.md §21 `all_negative_window_behaviour`); we don't
     assert ref("edge_cases", "all_negative_window_behaviour")[
         "average_precision_score"]["result"] == 0
     r = disc.average_precision([0, 0, 0], [0.1, 0.2, 0.3])

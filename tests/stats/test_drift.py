@@ -1,4 +1,4 @@
-"""PSI, KS and Jensen–Shannon (calibrant.stats.drift) against scipy and METHODS.md 10."""
+"""PSI, KS and Jensen–Shannon (calibrant.stats.drift) against scipy and docs/methods.md §21."""
 
 from __future__ import annotations
 
@@ -17,24 +17,24 @@ BC = "breast_cancer_drift_train_vs_test_scores"
 
 def test_psi_synthetic() -> None:
     p, _, p_ref = synthetic()
-    # source: METHODS.md 10 `psi_ref_deciles` (numpy; np.quantile deciles, np.histogram)
+    # source: docs/methods.md §21 `psi_ref_deciles` (numpy; np.quantile deciles, np.histogram)
     assert drift.psi(p_ref, p, smoothing=0).value == pytest.approx(
         ref(SYN, "psi_ref_deciles"), rel=1e-12)
     r = drift.psi(p_ref, p)
-    assert r.value == pytest.approx(0.0622553, rel=1e-6)  # METHODS.md 10 "+0.5 smoothing"
-    # source: METHODS.md 10 `psi_null_95pct_chi2_approx` (scipy.stats.chi2.ppf)
+    assert r.value == pytest.approx(0.0622553, rel=1e-6)  # docs/methods.md §21 "+0.5 smoothing"
+    # source: docs/methods.md §21 `psi_null_95pct_chi2_approx` (scipy.stats.chi2.ppf)
     assert r.extra["null_95"] == pytest.approx(ref(SYN, "psi_null_95pct_chi2_approx"), rel=1e-12)
     assert r.extra["null_95"] == pytest.approx(stats.chi2.ppf(0.95, 9) * (2 / 2000), rel=1e-12)
     assert r.extra["common_practice_minor"] == 0.1
     sim = drift.psi(p_ref, p, n_null=500, seed=1).extra["null_95_simulated"]
-    # simulated null 95 % point: METHODS.md 10 reports 0.0167 (2000 simulations)
+    # simulated null 95 % point: docs/methods.md §21 reports 0.0167 (2000 simulations)
     assert sim == pytest.approx(ref(SYN, "psi_null_95pct_simulated"), rel=0.15)
 
 
 def test_psi_breast_cancer_and_counts() -> None:
     p, _, p_tr = breast_cancer()
     r = drift.psi(p_tr, p)
-    # source: METHODS.md 10 breast cancer `psi_ref_deciles_laplace0.5`
+    # source: docs/methods.md §21 breast cancer `psi_ref_deciles_laplace0.5`
     v = ref(BC, "psi_ref_deciles_laplace0.5")
     assert r.value == pytest.approx(v, rel=1e-12)
     edges = drift.reference_bin_edges(p_tr)
@@ -63,7 +63,7 @@ def test_ks(which: str) -> None:
         p, _, p_ref = breast_cancer()
         key = BC
     r = drift.ks_2samp(p_ref, p)
-    # source: scipy.stats.ks_2samp, computed here, and METHODS.md 10 `ks_2samp`
+    # source: scipy.stats.ks_2samp, computed here, and docs/methods.md §21 `ks_2samp`
     sp = stats.ks_2samp(p_ref, p)
     assert r.value == sp.statistic
     assert r.extra["p_value"] == sp.pvalue
@@ -82,14 +82,14 @@ def test_ks_weighted_and_counts() -> None:
     assert r.extra["p_value"] == pytest.approx(sp.pvalue, rel=1e-9)
     edges = drift.reference_bin_edges(p_ref, n_bins=50)
     lb = drift.ks_from_counts(drift.histogram(p_ref, edges), drift.histogram(p, edges))
-    assert lb.value <= drift.ks_2samp(p_ref, p).value + 1e-12  # a lower bound (METHODS 6.3)
+    assert lb.value <= drift.ks_2samp(p_ref, p).value + 1e-12  # a lower bound (docs/methods.md §17.3)
     assert drift.ks_2samp([], [0.2]).status is Status.NO_VALUE
 
 
 def test_js_distance() -> None:
     p, _, p_ref = synthetic()
     r = drift.js_distance(p_ref, p)
-    # source: METHODS.md 10 `js_distance_base2_ref_deciles` (scipy jensenshannon base 2)
+    # source: docs/methods.md §21 `js_distance_base2_ref_deciles` (scipy jensenshannon base 2)
     assert r.value == pytest.approx(ref(SYN, "js_distance_base2_ref_deciles"), rel=1e-12)
     edges = drift.reference_bin_edges(p_ref)
     a, b = drift.histogram(p_ref, edges), drift.histogram(p, edges)
@@ -97,7 +97,7 @@ def test_js_distance() -> None:
     assert 0 < r.extra["null_95"] < r.value  # a real shift, above the multinomial null
     assert drift.js_distance(p_ref, p).extra["null_95"] == r.extra["null_95"]  # seeded
     pb, _, p_tr = breast_cancer()
-    # source: METHODS.md 10 breast cancer `js_distance_base2` (+0.5-smoothed decile bins)
+    # source: docs/methods.md §21 breast cancer `js_distance_base2` (+0.5-smoothed decile bins)
     assert drift.js_distance(p_tr, pb, smoothing=0.5).value == pytest.approx(
         ref(BC, "js_distance_base2"), rel=1e-12)
     assert drift.js_distance_from_counts([5, 0], [5, 0]).value == 0.0

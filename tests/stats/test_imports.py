@@ -1,4 +1,4 @@
-"""calibrant.stats imports only the standard library, numpy, scipy and itself (STYLE.md 1)."""
+"""calibrant.stats imports only the standard library, numpy, scipy and itself (docs/architecture.md)."""
 
 from __future__ import annotations
 

@@ -27,7 +27,7 @@ def test_citl_matches_statsmodels_glm_offset(name: str) -> None:
     fit = sm.GLM(y, np.ones((y.size, 1)), family=sm.families.Binomial(), offset=_x(p)).fit(
         tol=1e-12)
     r = rc.calibration_intercept(y, p)
-    # source: statsmodels GLM(offset=logit p) params/bse, computed here, and METHODS.md 10
+    # source: statsmodels GLM(offset=logit p) params/bse, computed here, and docs/methods.md §21
     assert r.value == pytest.approx(fit.params[0], rel=1e-8)
     assert r.se == pytest.approx(fit.bse[0], rel=1e-8)
     assert r.value == pytest.approx(ref(key, "citl_intercept"), rel=1e-6)
@@ -47,7 +47,7 @@ def test_slope_matches_statsmodels_logit(name: str) -> None:
     assert r.slope.se == pytest.approx(fit.bse[1], rel=1e-7)
     assert r.intercept.se == pytest.approx(fit.bse[0], rel=1e-7)
     assert r.cov_intercept_slope == pytest.approx(fit.cov_params()[0, 1], rel=1e-6)
-    # source: METHODS.md 10 `calibration_slope`, `calibration_intercept` and their SEs
+    # source: docs/methods.md §21 `calibration_slope`, `calibration_intercept` and their SEs
     assert r.slope.value == pytest.approx(ref(key, "calibration_slope"), rel=1e-6)
     assert r.intercept.value == pytest.approx(ref(key, "calibration_intercept"), rel=1e-6)
     assert [r.intercept.se, r.slope.se] == pytest.approx(
@@ -61,7 +61,7 @@ def test_lr_tests_check_values(name: str) -> None:
     p, y = dataset(name)
     key = DATASETS[name]
     t = rc.recalibration_tests(y, p)
-    # source: METHODS.md 10 `cox_lr_test_a0_b1_2df`, `lr_test_citl_1df`,
+    # source: docs/methods.md §21 `cox_lr_test_a0_b1_2df`, `lr_test_citl_1df`,
     # `lr_test_slope_given_free_intercept_1df` (statsmodels llf, scipy chi2)
     for est, k in ((t.joint, "cox_lr_test_a0_b1_2df"), (t.calibration_in_the_large,
                    "lr_test_citl_1df"), (t.slope_given_intercept,
@@ -82,7 +82,7 @@ def test_breast_cancer_extreme_logits_counted() -> None:
 def test_separated_window_is_insufficient_not_huge() -> None:
     ys = np.array([0, 0, 0, 1, 1, 1])
     ps = np.array([0.1, 0.2, 0.3, 0.6, 0.7, 0.8])
-    # statsmodels returns huge params/bse here (METHODS.md 10 `slope_fit_separated_window`)
+    # statsmodels returns huge params/bse here (docs/methods.md §21 `slope_fit_separated_window`)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         fit = sm.Logit(ys, sm.add_constant(logit(ps))).fit(disp=0)
@@ -91,7 +91,7 @@ def test_separated_window_is_insufficient_not_huge() -> None:
     assert r.slope.status is Status.TOO_FEW_CASES
     assert r.slope.value is None
     assert "separated" in r.slope.reason
-    # the default floor (20 events and 20 non-events, METHODS.md 9) catches it first
+    # the default floor (20 events and 20 non-events, docs/methods.md §20) catches it first
     assert rc.calibration_slope(ys, ps).status is Status.TOO_FEW_CASES
     # large separated window: passes the floor, still insufficient
     big_p = np.r_[np.linspace(0.01, 0.4, 50), np.linspace(0.6, 0.99, 50)]

@@ -1,4 +1,4 @@
-"""Score drift from summaries vs scipy on the raw rows and METHODS.md 10 drift checks."""
+"""Score drift from summaries vs scipy on the raw rows and docs/methods.md §21 drift checks."""
 
 from __future__ import annotations
 
@@ -39,7 +39,7 @@ def test_psi_and_js_exact_on_snapped_edges(name: str) -> None:
     # source: scipy.spatial.distance.jensenshannon(base=2), unsmoothed, same bins
     assert d.js_distance.value == pytest.approx(
         jensenshannon(r0 / r0.sum(), c0 / c0.sum(), base=2), rel=1e-10)
-    # source: METHODS.md 6.2 null level chi2_{0.95,B-1}(1/n + 1/m) via scipy.stats.chi2.ppf
+    # source: docs/methods.md §17.2 null level chi2_{0.95,B-1}(1/n + 1/m) via scipy.stats.chi2.ppf
     b = edges.size - 1
     assert d.psi.extra["null_95"] == pytest.approx(
         stats.chi2.ppf(0.95, b - 1) * (1 / p_ref.size + 1 / p_cur.size), rel=1e-12)
@@ -49,7 +49,7 @@ def test_psi_and_js_exact_on_snapped_edges(name: str) -> None:
 def test_psi_near_unsnapped_deciles(name: str) -> None:
     _, _, cur, refs = _pair(name)
     key, field = CHECK[name]
-    # source: METHODS.md 10 PSI at exact reference deciles with +0.5 smoothing; snapping moves
+    # source: docs/methods.md §21 PSI at exact reference deciles with +0.5 smoothing; snapping moves
     # each edge by at most one fine bin: tolerance 0.01 chosen for that
     assert score_drift(cur, refs).psi.value == pytest.approx(ref(key, field), abs=0.01)
 

@@ -103,7 +103,7 @@ def test_summary_statistics_equal_array_statistics(r) -> None:
     pairs = [(sm_.log_loss(v), sc.log_loss(y, q)), (sm_.brier(v), sc.brier_score(y, q)),
              (sm_.observed_expected(v), cal.observed_expected(y, q))]
     if np.all(np.isin(q, (0.0, 0.5, 1.0))):
-        # null variance Σ(1 − 2p)²p(1 − p) is exactly 0: undefined (METHODS.md 4.1 edge case)
+        # null variance Σ(1 − 2p)²p(1 − p) is exactly 0: undefined (docs/methods.md §10 edge case)
         assert sm_.spiegelhalter_z(v).status is Status.NO_VALUE
     elif np.all((q > 1e-6) & (q < 1 - 1e-6)):
         # the power-sum variance Σ(p − 5p² + 8p³ − 4p⁴) cancels to absolute error ~ε·Σp, so
@@ -118,12 +118,12 @@ def test_summary_statistics_equal_array_statistics(r) -> None:
         assert sm_.log_loss(v).value == pytest.approx(sk_log_loss(y, q, labels=[0, 1]), rel=1e-9)
     if 0 < y.sum() < y.size:
         a = sb.auc(v, min_per_class=2)
-        # source: sklearn roc_auc_score on rows; bins-as-ties bound of METHODS.md 0.2
+        # source: sklearn roc_auc_score on rows; bins-as-ties bound of docs/methods.md §2
         assert abs(a.value - roc_auc_score(y, q)) <= a.extra["binning_error_bound"] + 1e-12
 
 
 def test_grid_constants() -> None:
-    # METHODS.md 0.2: 641 edges of width 0.05 on [-16, 16] + 19 edges j/20 (j = 10 is shared)
+    # docs/methods.md §2: 641 edges of width 0.05 on [-16, 16] + 19 edges j/20 (j = 10 is shared)
     assert EDGES_P.size == 641 + 18
     assert N_BINS == 660
     assert all(j / 20 in set(EDGES_P.tolist()) for j in range(1, 20))
@@ -176,7 +176,7 @@ def test_one_class_window() -> None:
     _no_nan(out)
     assert out["log_loss"].measured
     assert out["brier"].measured
-    assert out["auc"].status is Status.NO_VALUE  # METHODS.md 5.1: never 0.5
+    assert out["auc"].status is Status.NO_VALUE  # docs/methods.md §15: never 0.5
     assert out["calibration_slope"].status is Status.NO_VALUE
     assert out["calibration_intercept"].status is Status.NO_VALUE
     assert out["psi"].status is Status.NO_VALUE  # no reference given

@@ -1,8 +1,8 @@
-"""Statistics from a summary vs the array version, reference libraries and METHODS.md 10.
+"""Statistics from a summary vs the array version, reference libraries and docs/methods.md §21.
 
-Exact quantities must agree to 1e-12 relative (METHODS.md 10: "recomputed from
+Exact quantities must agree to 1e-12 relative (docs/methods.md §21: "recomputed from
 the bucket sums equal the per-observation values to within 1e-12"); binned ones
-within the errors of METHODS.md 0.2.
+within the errors of docs/methods.md §2.
 """
 
 from __future__ import annotations
@@ -47,13 +47,13 @@ def test_exact_scores_equal_array_and_sklearn(name: str) -> None:
     assert ll.se == pytest.approx(arr.se, rel=1e-12)
     assert ll.extra["n_clipped"] == arr.extra["n_clipped"]
     assert ll.extra["n_confident_errors"] == arr.extra["n_confident_errors"]
-    # source: METHODS.md 10 `log_loss_se` (numpy formula)
+    # source: docs/methods.md §21 `log_loss_se` (numpy formula)
     assert ll.se == pytest.approx(ref(key, "log_loss_se"), rel=1e-10)
     bs = sm_.brier(s)
     # source: sklearn.metrics.brier_score_loss, computed here
     assert bs.value == pytest.approx(brier_score_loss(y, p), rel=1e-12)
     assert bs.se == pytest.approx(sc.brier_score(y, p).se, rel=1e-10)
-    # source: METHODS.md 10 `brier_se`, `brier_expected_if_calibrated`
+    # source: docs/methods.md §21 `brier_se`, `brier_expected_if_calibrated`
     assert bs.se == pytest.approx(ref(key, "brier_se"), rel=1e-10)
     assert sm_.expected_brier(s).value == pytest.approx(
         ref(key, "brier_expected_if_calibrated"), rel=1e-12)
@@ -63,7 +63,7 @@ def test_exact_scores_equal_array_and_sklearn(name: str) -> None:
 def test_exact_calibration_tests_equal_array_version(name: str) -> None:
     p, y, s = _summary(name)
     key = DATASETS[name]
-    # source: array versions in calibrant.stats (per-observation sums), and METHODS.md 10
+    # source: array versions in calibrant.stats (per-observation sums), and docs/methods.md §21
     z = sm_.spiegelhalter_z(s)
     assert z.value == pytest.approx(cal.spiegelhalter_z(y, p).value, rel=1e-12)
     assert z.value == pytest.approx(ref(key, "spiegelhalter_z"), rel=1e-10)
@@ -76,7 +76,7 @@ def test_exact_calibration_tests_equal_array_version(name: str) -> None:
     oe = sm_.observed_expected(s)
     assert oe.value == pytest.approx(ref(key, "O_over_E"), rel=1e-12)
     assert oe.ci == pytest.approx(cal.observed_expected(y, p).ci, rel=1e-12)
-    # METHODS.md 10 `O_over_E_95ci` used z = 1.96, we use norm.ppf(0.975) = 1.959964
+    # docs/methods.md §21 `O_over_E_95ci` used z = 1.96, we use norm.ppf(0.975) = 1.959964
     assert oe.ci == pytest.approx(tuple(ref(key, "O_over_E_95ci")), rel=1e-5)
     assert oe.extra["z"] == pytest.approx(ref(key, "O_minus_E_z"), rel=1e-10)
     assert sm_.log_loss_skill(s).value == pytest.approx(ref(key, "log_loss_skill"), rel=1e-10)
@@ -85,7 +85,7 @@ def test_exact_calibration_tests_equal_array_version(name: str) -> None:
 
 
 def test_sums_match_methods_bucket_check_values() -> None:
-    # source: METHODS.md 10 `*_from_sums` (width 0.05 buckets): exact, so any grid gives them
+    # source: docs/methods.md §21 `*_from_sums` (width 0.05 buckets): exact, so any grid gives them
     _, _, s = _summary("synthetic")
     r = BUCKET_REF["width_0.05"]
     assert sm_.log_loss(s).value == pytest.approx(r["log_loss_from_sums"]["exact"], rel=1e-12)
@@ -101,7 +101,7 @@ def test_murphy_and_uniform_ece_exact_on_aligned_bins(name: str) -> None:
     p, y, s = _summary(name)
     key = DATASETS[name]
     d = sb.murphy_decomposition(s)
-    # source: METHODS.md 10 `murphy_10bins` (numpy, bins [k/10, (k+1)/10))
+    # source: docs/methods.md §21 `murphy_10bins` (numpy, bins [k/10, (k+1)/10))
     m = ref(key, "murphy_10bins")
     for attr, k in (("reliability", "REL"), ("resolution", "RES"), ("uncertainty", "UNC"),
                     ("within_bin_variance", "WBV"), ("within_bin_covariance", "WBC")):
@@ -110,7 +110,7 @@ def test_murphy_and_uniform_ece_exact_on_aligned_bins(name: str) -> None:
     a = murphy_decomposition(y, p)
     assert d.reliability == pytest.approx(a.reliability, rel=1e-10)
     e = sb.ece(s)
-    # source: METHODS.md 10 `ece_uniform_10`, `mce_uniform_10` (sklearn calibration_curve)
+    # source: docs/methods.md §21 `ece_uniform_10`, `mce_uniform_10` (sklearn calibration_curve)
     assert e.value == pytest.approx(ref(key, "ece_uniform_10"), rel=1e-10)
     assert e.extra["mce"] == pytest.approx(ref(key, "mce_uniform_10"), rel=1e-10)
 
@@ -129,7 +129,7 @@ def test_reliability_diagram_matches_sklearn_calibration_curve(name: str) -> Non
 def test_quantile_ece_within_snapping_error() -> None:
     _, _, s = _summary("synthetic")
     e = sb.ece(s, strategy="quantile")
-    # source: METHODS.md 10 `ece_quantile_10` (sklearn); snapped edges move each edge by at
+    # source: docs/methods.md §21 `ece_quantile_10` (sklearn); snapped edges move each edge by at
     # most one fine bin (< 1 % of the rows here), tolerance chosen for that
     assert e.value == pytest.approx(ref("synthetic", "ece_quantile_10"), abs=5e-3)
 
@@ -146,18 +146,18 @@ def test_auc_bins_as_ties(name: str) -> None:
     assert a.value == pytest.approx(roc_auc_score(y, ids), rel=1e-12)
     ap = sb.average_precision(s)
     assert ap.value == pytest.approx(average_precision_score(y, ids), rel=1e-12)
-    # source: sklearn average_precision_score on the rows; no bound is derived (METHODS.md
-    # 0.2), tolerance 5e-3 = ten times the AUC tolerance
+    # source: sklearn average_precision_score on the rows; no bound is derived (docs/methods.md
+    # §2), tolerance 5e-3 = ten times the AUC tolerance
     assert ap.value == pytest.approx(average_precision_score(y, p), abs=5e-3)
 
 
 def test_auc_delong_se_near_row_level_value() -> None:
     _, _, s = _summary("synthetic")
     a = sb.auc(s)
-    # source: METHODS.md 10 `auc_delong_se` (DeLong formula on rows); bins as ties shift it
+    # source: docs/methods.md §21 `auc_delong_se` (DeLong formula on rows); bins as ties shift it
     # by the same order as the AUC (1e-4 relative to 0.7): allow 1 %
     assert a.se == pytest.approx(ref("synthetic", "auc_delong_se"), rel=1e-2)
-    # source: METHODS.md 10 `auc_95ci_logit`, same tolerance
+    # source: docs/methods.md §21 `auc_95ci_logit`, same tolerance
     assert a.ci == pytest.approx(tuple(ref("synthetic", "auc_95ci_logit")), rel=1e-2)
 
 
@@ -187,7 +187,7 @@ def test_calibration_fits_on_bins() -> None:
     assert rec.intercept.value == pytest.approx(params[0], rel=1e-7)
     assert rec.slope.se == pytest.approx(bse[1], rel=1e-6)
     assert citl.value == pytest.approx(citl_sm, rel=1e-7)
-    # source: statsmodels Logit on the raw rows; METHODS.md 0.2: error O(w²). With each class
+    # source: statsmodels Logit on the raw rows; docs/methods.md §2: error O(w²). With each class
     # at its own mean logit we measured 1.1e-4 on slope and intercept and 1.5e-5 on CITL here.
     x = logit(np.clip(p, EPS, 1 - EPS))
     raw = sm.Logit(y, sm.add_constant(x)).fit(disp=0)
@@ -195,7 +195,7 @@ def test_calibration_fits_on_bins() -> None:
     assert abs(rec.intercept.value - raw.params[0]) <= 3e-4
     raw_citl = sm.GLM(y, np.ones((y.size, 1)), family=sm.families.Binomial(), offset=x).fit()
     assert abs(citl.value - raw_citl.params[0]) <= 1e-4
-    # source: METHODS.md 10 `calibration_intercept_slope_from_histogram` (plain 0.05 grid;
+    # source: docs/methods.md §21 `calibration_intercept_slope_from_histogram` (plain 0.05 grid;
     # ours adds the logit(j/20) edges, so the two binned fits differ by O(w²) as well)
     hist = BUCKET_REF["width_0.05"]["calibration_intercept_slope_from_histogram"]["value"]
     assert rec.slope.value == pytest.approx(hist[1], abs=1e-3)
@@ -205,15 +205,15 @@ def test_calibration_fits_on_bins() -> None:
 def test_ici_from_bin_means_near_row_lowess() -> None:
     _, _, s = _summary("synthetic")
     r = sb.integrated_calibration_index(s)
-    # source: METHODS.md 10 `ici_lowess_local_linear` (statsmodels lowess frac=0.75, it=0 on
-    # rows); METHODS.md 0.2 says "small if w ≪ span, not exact": tolerance 2e-3 chosen
+    # source: docs/methods.md §21 `ici_lowess_local_linear` (statsmodels lowess frac=0.75, it=0 on
+    # rows); docs/methods.md §2 says "small if w ≪ span, not exact": tolerance 2e-3 chosen
     assert r.ici == pytest.approx(ref("synthetic", "ici_lowess_local_linear")["ICI"], abs=2e-3)
     assert r.emax == pytest.approx(ref("synthetic", "ici_lowess_local_linear")["Emax"], abs=5e-3)
 
 
 def test_breast_cancer_ici_insufficient() -> None:
     _, _, s = _summary("breast_cancer")
-    # METHODS.md 9 floor: 200 events and 200 non-events (the split has 107 / 64)
+    # docs/methods.md §20 floor: 200 events and 200 non-events (the split has 107 / 64)
     assert sb.integrated_calibration_index(s).status is Status.TOO_FEW_CASES
 
 

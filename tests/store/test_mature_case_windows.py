@@ -1,5 +1,5 @@
 """Reading mature cases in windows gives exactly the cases, in exactly the order, that the
-maturity definition gives (DESIGN 3, as restated in ``store.mature_cases``).
+maturity definition gives (docs/architecture.md, data semantics, as restated in ``store.mature_cases``).
 
 The expected list is computed by pandas from the rows the test posted: with a horizon H and
 lag L a case matures at the end of its scored hour + H + L (and must be ≤ now); without a

@@ -7,7 +7,7 @@ watermark; an outcome received after its case was passed by the watermark is
 counted as ``skipped_late`` and never fed in out of order. A mature case with
 no label (no implicit negatives) is passed over and counted.
 
-Design (METHODS 7.1): once a stream has ``min_design_cases`` labeled mature
+Design (docs/methods.md §18): once a stream has ``min_design_cases`` labeled mature
 cases, h is designed by the Markov-chain designer from its recent risks for
 ARL0 = K × (cases per day) × 365.25 / budget, K the number of chart streams
 of the model (``arl0_for_false_alarm_budget``): the model's charts together

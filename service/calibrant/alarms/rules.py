@@ -7,7 +7,7 @@ at the feeds at every evaluation.
 
 Expected false alarms per year of a window rule, stated in the API, is
 level × evaluations per year × streams (versions × segments): each period's
-test is made once, at its stated level, on each stream (DESIGN 5).
+test is made once, at its stated level, on each stream (docs/architecture.md, alarms).
 """
 
 from __future__ import annotations
@@ -233,7 +233,7 @@ class Decision:
 
     crossed: bool | None
     statistic: float | None
-    n: float
+    n: int
     summary: str
     interval: tuple[float, float] | None = None
     detail: dict[str, Any] = field(default_factory=dict)
@@ -241,7 +241,7 @@ class Decision:
 
 @dataclass(frozen=True, slots=True)
 class LogLossSums:
-    """Labeled-row sums of a window: n, events, Σℓ, ΣH(p), Σ p(1−p)x² (METHODS 0.2)."""
+    """Labeled-row sums of a window: n, events, Σℓ, ΣH(p), Σ p(1−p)x² (docs/methods.md §2)."""
 
     n: float
     n1: float
@@ -250,23 +250,28 @@ class LogLossSums:
     sv: float
 
 
+def whole(count: float) -> int:
+    """A count summed from float summaries (a whole number held as a float) as the int it is."""
+    return round(count)
+
+
 def excess_log_loss(current: LogLossSums, reference: LogLossSums | None,
                     params: ExcessLogLossParams) -> Decision:
     """One-sided test of Δ = D − D_ref > 0, D = (Σℓ − ΣH)/n the excess log-loss.
 
     Under calibration E[ℓ_i] = H(p_i) and Var ℓ_i = p_i(1 − p_i)x_i², x = logit p
-    (METHODS 1, [D]), so Var0 D = Σv/n². z = Δ / sqrt(Var0 D + Var0 D_ref); cross when
+    (docs/methods.md §5, [D]), so Var0 D = Σv/n². z = Δ / sqrt(Var0 D + Var0 D_ref); cross when
     z > z_{1−α} and Δ ≥ min_relative_effect × E0[LL]. Without a labeled reference
     D_ref = 0 (the model is compared with perfect calibration). Raw log-loss
     difference is reported as context only: it moves with the case mix.
     """
     n0 = current.n - current.n1
     if current.n < params.min_labeled or min(current.n1, n0) < params.min_per_class:
-        return Decision(None, None, current.n,
+        return Decision(None, None, whole(current.n),
                         f"too few cases: {current.n:g} labeled ({current.n1:g} events); needs "
                         f"{params.min_labeled} and {params.min_per_class} of each class")
     if current.sv <= 0:
-        return Decision(None, None, current.n, "null variance is 0 (every p is 0, ½ or 1)")
+        return Decision(None, None, whole(current.n), "null variance is 0 (every p is 0, ½ or 1)")
     d = (current.sl - current.sh) / current.n
     var = current.sv / current.n**2
     d_ref = var_ref = 0.0
@@ -290,7 +295,7 @@ def excess_log_loss(current: LogLossSums, reference: LogLossSums | None,
         "raw_log_loss_difference": None if ll_ref is None else ll - ll_ref,
         "reference": "labeled reference" if ll_ref is not None else "none: compared with calibration",
     }
-    return Decision(crossed, delta, current.n,
+    return Decision(crossed, delta, whole(current.n),
                     f"excess log-loss {d:.4f} vs reference {d_ref:.4f} (z = {z:.2f}, "
                     f"critical {z_crit:.2f}, minimum effect {floor:.4f})",
                     (delta - 1.959964 * se, delta + 1.959964 * se), detail)
@@ -300,39 +305,40 @@ def threshold(est: Estimate, params: ThresholdParams) -> Decision:
     """Value outside [lower, upper] (and, if asked, its 95 % interval excluding a value)."""
     n = float(est.n or 0.0)
     if est.value is None or not est.measured:
-        return Decision(None, None, n, f"{params.metric} not available: {est.reason}")
+        return Decision(None, None, whole(n), f"{params.metric} not available: {est.reason}")
     if n < params.min_n:
-        return Decision(None, est.value, n, f"too few cases: n = {n:g} < {params.min_n}")
+        return Decision(None, est.value, whole(n), f"too few cases: n = {n:g} < {params.min_n}")
     v = est.value
     below = params.lower is not None and v < params.lower
     outside = below or (params.upper is not None and v > params.upper)
     excluded = True
     if params.interval_excludes is not None:
         if est.ci is None:
-            return Decision(None, v, n, f"{params.metric} has no interval in this period")
+            return Decision(None, v, whole(n), f"{params.metric} has no interval in this period")
         excluded = not (est.ci[0] <= params.interval_excludes <= est.ci[1])
     crossed = bool(outside and excluded)
-    return Decision(crossed, v, n, f"{params.metric} = {v:.4g}, bounds [{params.lower}, {params.upper}]",
-                    est.ci, {"metric": params.metric, "lower": params.lower, "upper": params.upper,
-                             "interval_excludes": params.interval_excludes})
+    return Decision(crossed, v, whole(n),
+                    f"{params.metric} = {v:.4g}, bounds [{params.lower}, {params.upper}]", est.ci,
+                    {"metric": params.metric, "lower": params.lower, "upper": params.upper,
+                     "interval_excludes": params.interval_excludes})
 
 
 def drift(est: Estimate, params: DriftParams) -> Decision:
-    """PSI above max(χ²_{1−α,B−1}(1/n + 1/m), min_psi) (METHODS 6.2 second-order law)."""
+    """PSI above max(χ²_{1−α,B−1}(1/n + 1/m), min_psi) (docs/methods.md §17.2 second-order law)."""
     n = float(est.n or 0.0)
     if est.value is None or not est.measured:
-        return Decision(None, None, n, f"PSI not available: {est.reason}")
+        return Decision(None, None, whole(n), f"PSI not available: {est.reason}")
     edges = str(est.extra.get("edges", ""))
     n_bins = int(est.extra.get("n_bins") or 2)
     n_ref = float(est.extra.get("n_reference") or 0.0)
     n_cur = float(est.extra.get("n_current") or n)
     if n_cur < params.min_predictions or n_ref <= 0:
-        return Decision(None, est.value, n_cur, f"too few cases: {n_cur:g} predictions")
+        return Decision(None, est.value, whole(n_cur), f"too few cases: {n_cur:g} predictions")
     null = float(stats.chi2.ppf(1.0 - params.level, n_bins - 1)) * (1.0 / n_ref + 1.0 / n_cur)
     limit = max(null, params.min_psi)
-    return Decision(bool(est.value > limit), est.value, n_cur,
+    return Decision(bool(est.value > limit), est.value, whole(n_cur),
                     f"PSI {est.value:.4f} vs limit {limit:.4f} (no-shift point {null:.4f})", None,
-                    {"null_level": null, "limit": limit, "n_bins": n_bins, "n_reference": n_ref,
+                    {"null_level": null, "limit": limit, "n_bins": n_bins, "n_reference": whole(n_ref),
                      "level": params.level, "edges": edges})
 
 
@@ -340,7 +346,7 @@ def starvation(silence_hours: float | None, mature: float, unlabeled: float,
                params: StarvationParams) -> Decision:
     """Silence longer than allowed, or too large an unlabeled share of mature predictions."""
     if silence_hours is None:
-        return Decision(None, None, 0.0, "no predictions yet")
+        return Decision(None, None, 0, "no predictions yet")
     silent = silence_hours > params.max_silence_hours
     share = unlabeled / mature if mature >= params.min_mature else None
     starved = share is not None and share > params.max_unlabeled_share
@@ -348,7 +354,7 @@ def starvation(silence_hours: float | None, mature: float, unlabeled: float,
     if share is not None:
         parts.append(f"{share:.0%} of {mature:g} mature predictions without outcome "
                      f"(limit {params.max_unlabeled_share:.0%})")
-    return Decision(bool(silent or starved), share if share is not None else silence_hours, mature,
+    return Decision(bool(silent or starved), share if share is not None else silence_hours, whole(mature),
                     "; ".join(parts), None,
-                    {"silence_hours": silence_hours, "unlabeled_share": share, "mature": mature,
+                    {"silence_hours": silence_hours, "unlabeled_share": share, "mature": whole(mature),
                      "silent": silent, "outcomes_missing": starved})

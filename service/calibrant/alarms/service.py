@@ -81,7 +81,8 @@ def _stream_out(stream: Any) -> dict[str, Any]:
         "version": stream.version, "segment": _segment(stream.segment_key, stream.segment_value),
         "designed": stream.state is not None, "cusum_statistic": state.get("s"),
         "control_limit": state.get("h"),
-        "cases_since_reset": state.get("n_cases"), "consumed": stream.consumed,
+        # Before its design a stream's chart has not started: no case fed since a reset.
+        "cases_since_reset": state.get("n_cases", 0), "consumed": stream.consumed,
         "skipped_late": stream.skipped_late, "unlabeled_at_maturity": stream.unlabeled_at_maturity,
         "watermark_at": stream.watermark_at, "design_error": (stream.design or {}).get("error"),
     }

@@ -1,6 +1,6 @@
 """Raw rows of one bucket → the summaries of "all" and of every declared segment value.
 
-Segments (DESIGN 3): a model declares up to 4 tag keys; each key keeps summaries
+Segments (docs/architecture.md, data semantics): a model declares up to 4 tag keys; each key keeps summaries
 for its first 50 distinct values, in order of first sight, and pools the rest
 under "other". A row without a declared key's tag is in no segment of that key
 (it still counts in "all").

@@ -1,6 +1,6 @@
 """Metrics of calendar periods, merged from hourly summaries (never from raw rows).
 
-Maturity (DESIGN 3) is applied here, at query time: with a horizon H and lag L
+Maturity (docs/architecture.md, data semantics) is applied here, at query time: with a horizon H and lag L
 an hourly bucket is mature when its end + H + L ≤ now. Label metrics use the
 mature buckets only (unlabeled rows of mature buckets count as 0 when the
 model has implicit negatives); counts, the mean probability and score drift
@@ -55,7 +55,7 @@ NO_REFERENCE = (
 def maturity_boundary(model: Model, now: datetime) -> datetime | None:
     """Buckets whose hour starts at or before the boundary are mature; None: all are.
 
-    end + H + L ≤ now  ⇔  hour ≤ now − H − L − 1 h (the equality is mature, DESIGN 3).
+    end + H + L ≤ now  ⇔  hour ≤ now − H − L − 1 h (the equality is mature; docs/architecture.md).
     """
     if model.outcome_horizon_days is None:
         return None

@@ -8,7 +8,7 @@ says why there is no number.
 
 Everything is cast to float64 first. float32 arithmetic is never used: it
 clips log-loss at 1.19e-7 instead of 2.22e-16 and stores any p above
-1 − 2.98e-8 as exactly 1 (METHODS.md 0.1).
+1 − 2.98e-8 as exactly 1 (docs/methods.md §1.2).
 
 Weights are *frequency* weights: an integer weight k means the row occurs k
 times, weight 0 drops the row, unit weights equal no weights. Rows with zero
@@ -34,7 +34,7 @@ __all__ = [
     "check_strategy",
 ]
 
-#: float64 machine epsilon, the log-loss clipping constant (METHODS.md 0.1).
+#: float64 machine epsilon, the log-loss clipping constant (docs/methods.md §1.2).
 EPS = float(np.finfo(np.float64).eps)
 
 

@@ -33,7 +33,7 @@ __all__ = [
 
 
 # ----------------------------------------------------------------------------- O/E
-def observed_expected_from_sums(n: float, O: float, E: float, Spq: float) -> Estimate:  # noqa: E741 METHODS.md names O, E
+def observed_expected_from_sums(n: float, O: float, E: float, Spq: float) -> Estimate:  # noqa: E741 docs/methods.md names O, E
     """O/E with 95 % interval and the O − E z from n, O = Σy, E = Σp, Spq = Σp(1 − p)."""
     if n <= 0:
         return missing(Status.NO_VALUE, "empty window", n=0.0)
@@ -62,7 +62,7 @@ def observed_expected(
     Interval: exp(ln(O/E) ± 1.96 sqrt(1/O − 1/n)) (E treated as fixed, O
     binomial). ``extra``: O, E, and the calibration-in-the-large test
     z = (O − E)/sqrt(Σ p(1 − p)) with its two-sided normal p-value (weight 1
-    in the score-test family of METHODS.md 0.3). O/E > 1: the model
+    in the score-test family of docs/methods.md §3). O/E > 1: the model
     under-predicts events.
 
     Edge cases: empty or E = 0 → no_value; O ∈ {0, n}: value without
@@ -71,7 +71,7 @@ def observed_expected(
     Hand check: y = (1, 0), p = (0.2, 0.2): O/E = 2.5.
 
     References: Debray et al. (2017), BMJ 356:i6460 [M, from memory] for the
-    variance form; METHODS.md section 3.
+    variance form; docs/methods.md §8.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     return observed_expected_from_sums(
@@ -86,7 +86,7 @@ def spiegelhalter_sums_from_power_sums(
     """(numerator, null variance) of Spiegelhalter's z from power sums (summary path).
 
     numerator = n1 − 2 Σ_{y=1} p − Σp + 2Σp²; variance = Σ(p − 5p² + 8p³ − 4p⁴)
-    = Σ (1 − 2p)² p(1 − p) [D, METHODS.md 4.1].
+    = Σ (1 − 2p)² p(1 − p) [D, docs/methods.md §10].
     """
     return n1 - 2.0 * S1_pos - S1 + 2.0 * S2, S1 - 5.0 * S2 + 8.0 * S3 - 4.0 * S4
 
@@ -127,7 +127,7 @@ def spiegelhalter_z(
     p = (0.4, 0.5) → 1.22.
 
     References: Spiegelhalter (1986), Statistics in Medicine 5(5):421–433;
-    Rufibach (2010), J Clin Epidemiol 63(8):938–939; METHODS.md 4.1.
+    Rufibach (2010), J Clin Epidemiol 63(8):938–939; docs/methods.md §10.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     p, w = d.p, d.w
@@ -171,7 +171,7 @@ def hosmer_lemeshow_from_groups(
     """Ĉ = Σ_j (O_j − E_j)² / (n_j p̄_j(1 − p̄_j)), p̄_j = E_j/n_j, from group totals.
 
     Empty groups drop out. ``min_expected``: floor on min_j min(E_j, n_j − E_j)
-    (METHODS.md 9: ≥ 10 expected per group), else too_few_cases.
+    (docs/methods.md §20: ≥ 10 expected per group), else too_few_cases.
     """
     n_j, o_j, e_j = (np.asarray(a, dtype=np.float64) for a in (n_j, o_j, e_j))
     keep = n_j > 0
@@ -262,7 +262,7 @@ def hosmer_lemeshow(
     small n; Van Calster et al. (2019) advise against it.
 
     References: Hosmer & Lemeshow (1980), Communications in Statistics –
-    Theory and Methods 9(10):1043–1069; METHODS.md 4.2.
+    Theory and Methods 9(10):1043–1069; docs/methods.md §11.
     """
     g = check_n_bins(n_bins)
     if grouping not in ("equal_count", "quantile"):

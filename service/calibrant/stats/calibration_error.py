@@ -26,7 +26,7 @@ __all__ = [
 
 #: the smoother is part of the metric's definition: local-linear tricube, span 0.75, no robustness
 LOWESS_FRAC = 0.75
-#: METHODS.md 9: ≥ 200 events and ≥ 200 non-events for a smoothed calibration curve
+#: docs/methods.md §20: ≥ 200 events and ≥ 200 non-events for a smoothed calibration curve
 ICI_MIN_EVENTS = 200
 _SMOOTHER = "lowess local-linear tricube, frac=0.75, it=0 (statsmodels lowess semantics)"
 
@@ -74,7 +74,7 @@ def expected_calibration_error(
 
         ECE = Σ_b (n_b / n) |ō_b − f̄_b|   (non-empty bins; f̄ mean p, ō event rate)
 
-    This is the *positive-class* ECE (METHODS.md 4.3), not the top-label ECE
+    This is the *positive-class* ECE (docs/methods.md §12), not the top-label ECE
     of multiclass papers (confidence max(p, 1 − p) vs accuracy), a different
     number; ``extra['variant']`` says so. ``extra['mce']`` is the MCE.
 
@@ -93,7 +93,7 @@ def expected_calibration_error(
 
     References: Naeini, Cooper & Hauskrecht (2015), Proc. AAAI 29:2901–2907;
     Guo et al. (2017) [M, from memory]; Nixon et al. (2019) [M]; Kumar, Liang &
-    Ma (2019) [M]; METHODS.md 4.3.
+    Ma (2019) [M]; docs/methods.md §12.
     """
     return _ece(y_true, y_proba, sample_weight, n_bins, strategy, closed)
 
@@ -113,7 +113,7 @@ def maximum_calibration_error(
     bin (``extra['min_bin_count']``). ``extra['ece']`` carries the ECE.
 
     References: Naeini, Cooper & Hauskrecht (2015), Proc. AAAI 29:2901–2907;
-    METHODS.md 4.3.
+    docs/methods.md §12.
     """
     e = _ece(y_true, y_proba, sample_weight, n_bins, strategy, closed)
     if not e.measured:
@@ -140,7 +140,7 @@ def lowess(
     outcomes). Costs O(n_distinct · n).
 
     Reference: Cleveland (1979), JASA 74(368):829–836 [M, from memory];
-    METHODS.md 4.4.
+    docs/methods.md §14.
     """
     xs = np.asarray(x, dtype=np.float64)
     ys = np.asarray(y, dtype=np.float64)
@@ -223,14 +223,14 @@ def integrated_calibration_index(
     span 0.75, no robustness iterations — fixed, as the smoother is part of the
     metric); with d_i = |ĝ(p_i) − p_i|: ICI = mean d, E50 = median, E90 = 90th
     percentile, Emax = max. Austin & Steyerberg's own code uses R ``loess``
-    (local quadratic), which gives somewhat different numbers (METHODS.md 4.4).
+    (local quadratic), which gives somewhat different numbers (docs/methods.md §14).
     With bin means as p and bin counts as weights this is the summary path.
 
     Edge cases: empty or one class → no_value; fewer than ``min_events``
-    events or non-events (METHODS.md 9: 200) → too_few_cases.
+    events or non-events (docs/methods.md §20: 200) → too_few_cases.
 
     References: Austin & Steyerberg (2019), Statistics in Medicine
-    38(21):4051–4065 (Emax credited there to Harrell); METHODS.md 4.4.
+    38(21):4051–4065 (Emax credited there to Harrell); docs/methods.md §14.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     if d.n <= 0:

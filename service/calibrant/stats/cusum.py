@@ -52,7 +52,7 @@ __all__ = [
 UPPER_ODDS_RATIO = 2.0  # common practice: detect a doubling of the odds (Steiner et al. 2000)
 LOWER_ODDS_RATIO = 0.5  # common practice: detect a halving of the odds
 
-_EPS = float(np.finfo(np.float64).eps)  # clipping policy of METHODS 0.1: [ε, 1 − ε]
+_EPS = float(np.finfo(np.float64).eps)  # clipping policy of docs/methods.md §1.2: [ε, 1 − ε]
 
 
 def _check_odds_ratio(r_a: float) -> float:
@@ -211,7 +211,7 @@ def reset(state: CusumState, h: float | None = None) -> CusumState:
     """Restart the chart at S = 0 after a person has resolved its alarm.
 
     Pass ``h`` to adopt a limit redesigned for the current risk mix
-    (METHODS 7.1: "refresh h if the risk mix has changed").
+    (docs/methods.md §18: "refresh h if the risk mix has changed").
     """
     return CusumState(r_a=state.r_a, h=state.h if h is None else float(h))
 

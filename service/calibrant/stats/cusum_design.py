@@ -2,15 +2,15 @@
 
 The in-control run length of a risk-adjusted CUSUM depends on the stream's
 mix of predicted risks, so h is designed from a sample of the stream's recent
-mature risks, taken as an empirical distribution resampled i.i.d. (METHODS
-7.1). The average run length comes from the Markov-chain approximation of
+mature risks, taken as an empirical distribution resampled i.i.d. (docs/methods.md
+§18). The average run length comes from the Markov-chain approximation of
 Brook & Evans (1972) (``cusum_markov``): the linear scheme at m and 2m states,
 Richardson-extrapolated, and h is the root of ln ARL0(h) = ln target.
 
 Minimum data: the designer needs at least one risk and raises ValueError for
 an empty sample. That is a mathematical floor only; as common practice use a
-few thousand recent mature cases (``RECOMMENDED_MIN_RISKS``, after METHODS
-7.1: "at least a few thousand cases"), because the tails of the risk mix
+few thousand recent mature cases (``RECOMMENDED_MIN_RISKS``, docs/methods.md
+§18), because the tails of the risk mix
 drive h. Redesign when the mix moves.
 
 References
@@ -225,7 +225,7 @@ def out_of_control_arl(
     Same chain as the design, with event probabilities q = OR p/(1 − p + OR p)
     while the chart's weights stay those of p; the shift is present from the
     first case. For Beta(2, 8) risks, h = 5.698, R_A = OR = 2 this is about
-    117.5 cases (METHODS 10). ``odds_ratio = 1`` gives ARL0.
+    117.5 cases (docs/methods.md §21). ``odds_ratio = 1`` gives ARL0.
     """
     mix: IncrementMix = increment_mix(risks, r_a, odds_ratio, max_points)
     return refined_markov_arl(float(h), mix, n_states).value
@@ -244,9 +244,9 @@ def arl0_for_false_alarm_budget(
     Why: a chart restarted after each alarm is a renewal process, so its
     long-run false-alarm rate is 1/ARL0 per case whatever the dependence
     between charts, and the rates of K charts add. For the *first* false
-    alarm the run lengths are roughly geometric (METHODS 7.1), and the time
+    alarm the run lengths are roughly geometric (docs/methods.md §18), and the time
     to the first of K roughly independent charts is about 1/Σ_k(1/ARL_k) =
-    ARL0_chart/K — METHODS 7.1's note on two charts on the same stream:
+    ARL0_chart/K — docs/methods.md §18's note on two charts on the same stream:
     simulated 4,962 cases for two charts of ARL0 ≈ 10,000 each. Charts on one
     stream are not independent, so this is an approximation (common
     practice).

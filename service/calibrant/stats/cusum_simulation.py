@@ -1,6 +1,6 @@
 """Monte-Carlo run lengths of the risk-adjusted CUSUM, vectorised over paths.
 
-Cross-check for the Markov-chain design (METHODS 7.1, steps 2–3): draw risks
+Cross-check for the Markov-chain design (docs/methods.md §18, steps 2–3): draw risks
 i.i.d. from the stream's empirical sample, outcomes y ~ Bernoulli(q) with
 q = OR p / (1 − p + OR p) (OR = 1 in control), and run the chart on many
 independent paths at once. S_t does not depend on h, so one path gives the

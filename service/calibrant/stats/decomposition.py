@@ -48,7 +48,7 @@ def murphy_from_bin_sums(
     """Decomposition from per-bin sums: count n_k, Σp, Σp², events O_k, Σ_{y=1} p.
 
     Within bin k: Σ(p − f̄)² = Σp² − (Σp)²/n_k and Σ(p − f̄)(y − ō) = Σ_{y=1}p − (Σp)O_k/n_k
-    (METHODS.md section 2, "From the bucket"; exact). Empty bins drop out.
+    (docs/methods.md §6, "From the bucket"; exact). Empty bins drop out.
     """
     n_k, sp_k, sp2_k, o_k, spy_k = (np.asarray(a, dtype=np.float64)
                                     for a in (n_k, sp_k, sp2_k, o_k, spy_k))
@@ -89,7 +89,7 @@ def murphy_decomposition(
         BS  = REL − RES + UNC + WBV − WBC   (exactly).
 
     Bins: edges k/n_bins. ``closed="left"`` (default): [k/B, (k+1)/B), last bin
-    closed — the ``np.histogram`` rule, the METHODS.md check values' rule and
+    closed — the ``np.histogram`` rule, the reference values' rule (tests/reference) and
     the mergeable summary's fine-grid rule (so summary and array agree
     exactly); ``closed="right"`` gives sklearn's ``calibration_curve`` rule.
 
@@ -98,7 +98,7 @@ def murphy_decomposition(
 
     References: Murphy (1973), J Appl Meteorology 12(4):595–600; Stephenson,
     Coelho & Jolliffe (2008), Weather and Forecasting 23(4):752–757;
-    METHODS.md section 2.
+    docs/methods.md §6.
     """
     n_bins = check_n_bins(n_bins)
     closed = check_closed(closed)

@@ -28,7 +28,7 @@ __all__ = [
     "roc_auc",
 ]
 
-#: METHODS.md 9: at least 20 events and 20 non-events for an AUC interval
+#: docs/methods.md §20: at least 20 events and 20 non-events for an AUC interval
 MIN_PER_CLASS_INTERVAL = 20
 
 
@@ -106,7 +106,7 @@ def roc_auc(
     References: Mann & Whitney (1947), Ann Math Stat 18(1):50–60 [M, from
     memory]; DeLong, DeLong & Clarke-Pearson (1988), Biometrics 44(3):837–845;
     Sun & Xu (2014), IEEE Signal Processing Letters 21(11):1389–1393 [M];
-    METHODS.md 5.1.
+    docs/methods.md §15.
     """
     _, neg, pos = class_counts_by_score(y_true, y_proba, sample_weight=sample_weight)
     return auc_from_class_counts(neg, pos, min_per_class=min_per_class)
@@ -146,7 +146,7 @@ def average_precision(
     very few events → extremely variable (bootstrap for uncertainty).
 
     References: Davis & Goadrich (2006), ICML [M, from memory]; Boyd, Eng &
-    Page (2013), ECML PKDD [M]; METHODS.md 5.2.
+    Page (2013), ECML PKDD [M]; docs/methods.md §16.
     """
     _, neg, pos = class_counts_by_score(y_true, y_proba, sample_weight=sample_weight)
     return average_precision_from_class_counts(neg, pos)

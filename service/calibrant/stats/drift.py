@@ -35,7 +35,7 @@ __all__ = [
     "reference_bin_edges",
 ]
 
-#: "minor shift" level: common practice, no published source, ignores sample size (METHODS 6.2)
+#: "minor shift" level: common practice, no published source, ignores sample size (docs/methods.md §17.2)
 PSI_COMMON_PRACTICE_MINOR = 0.1
 #: "major shift" level: common practice, no published source, ignores sample size
 PSI_COMMON_PRACTICE_MAJOR = 0.25
@@ -163,7 +163,7 @@ def psi(
 
     References: Yurdakul (2018), PhD dissertation, Western Michigan University;
     Yurdakul & Naranjo, J Risk Model Validation [year M, from memory];
-    METHODS.md 6.1–6.2 [D for the null point].
+    docs/methods.md §17.1–6.2 [D for the null point].
     """
     r, c = _histograms(reference, current, edges, n_bins, reference_weight, current_weight)
     return psi_from_counts(r, c, smoothing=smoothing, n_null=n_null, seed=seed)
@@ -236,7 +236,7 @@ def js_distance(
 
     References: Lin (1991), IEEE Trans Inf Theory 37(1):145–151 [M, from
     memory]; Endres & Schindelin (2003), IEEE Trans Inf Theory 49(7):1858–1860
-    [M]; METHODS.md 6.4.
+    [M]; docs/methods.md §17.4.
     """
     r, c = _histograms(reference, current, edges, n_bins, reference_weight, current_weight)
     return js_distance_from_counts(r, c, smoothing=smoothing, n_null=n_null, seed=seed)
@@ -250,7 +250,7 @@ def _ks_asymp_p(d: float, n: float, m: float) -> float:
 def ks_from_counts(reference_counts: ArrayLike, current_counts: ArrayLike) -> Estimate:
     """KS D evaluated at the shared bin edges, asymptotic p; a lower bound on the exact D.
 
-    The shortfall is at most the largest bin mass (METHODS.md 6.3).
+    The shortfall is at most the largest bin mass (docs/methods.md §17.3).
     """
     r, c = _pair(reference_counts, current_counts)
     n, m = float(r.sum()), float(c.sum())
@@ -281,7 +281,7 @@ def ks_2samp(
     Edge cases: an empty sample → no_value.
 
     References: Kolmogorov (1933) [M, from memory]; Smirnov (1948), Ann Math
-    Stat 19(2):279–281 [M]; METHODS.md 6.3.
+    Stat 19(2):279–281 [M]; docs/methods.md §17.3.
     """
     a = as_scores(reference, reference_weight, name="reference", check_unit_interval=False,
                   weight_name="reference_weight")

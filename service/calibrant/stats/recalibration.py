@@ -5,7 +5,7 @@ inverse Fisher information.
 
 Each function has a ``*_from_logits`` twin taking the (clipped) logits x
 directly; the mergeable summary passes bin-mean logits with class counts as
-frequency weights (METHODS.md 3, "From the bucket").
+frequency weights (docs/methods.md §9, "From the bucket").
 """
 
 from __future__ import annotations
@@ -36,9 +36,9 @@ __all__ = [
     "recalibration_tests_from_logits",
 ]
 
-#: hard floor of events and of non-events for the slope fit (METHODS.md 9; ≥ 100 recommended)
+#: hard floor of events and of non-events for the slope fit (docs/methods.md §20; ≥ 100 recommended)
 MIN_EVENTS_SLOPE = 20
-#: logits beyond ±16 are counted as high-leverage points (METHODS.md 3)
+#: logits beyond ±16 are counted as high-leverage points (docs/methods.md §9)
 EXTREME_LOGIT = 16.0
 
 
@@ -154,7 +154,7 @@ def calibration_intercept(
     Edge cases: empty or one class → no_value (the MLE does not exist).
 
     References: Van Calster et al. (2016), J Clin Epidemiol 74:167–176;
-    Van Calster et al. (2019), BMC Medicine 17:230; METHODS.md section 3.
+    Van Calster et al. (2019), BMC Medicine 17:230; docs/methods.md §9.
     Same numbers as statsmodels ``GLM(y, 1, Binomial(), offset=x)``.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
@@ -253,13 +253,13 @@ def logistic_recalibration(
     ``n_extreme_logits`` and ``slope_winsorised_16`` is the sensitivity fit.
 
     Edge cases: empty or one class → no_value; fewer than ``min_events``
-    events or non-events (METHODS.md 9: hard floor 20) → too_few_cases;
+    events or non-events (docs/methods.md §20: hard floor 20) → too_few_cases;
     separated classes or a diverging fit → too_few_cases (statsmodels
     would return huge coefficients and SEs there).
 
     References: Cox (1958), Biometrika 45(3/4):562–565 [M, from memory];
-    Van Calster et al. (2016), J Clin Epidemiol 74:167–176; METHODS.md
-    section 3. Same numbers as statsmodels ``Logit(y, [1, x])``.
+    Van Calster et al. (2016), J Clin Epidemiol 74:167–176; docs/methods.md
+    §9. Same numbers as statsmodels ``Logit(y, [1, x])``.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     return _recal(d.y, clipped_logit(d.p), d.w, d.n1, d.n0, min_events)
@@ -351,7 +351,7 @@ def recalibration_tests(
     floors (:func:`logistic_recalibration`).
 
     References: Cox (1958), Biometrika 45(3/4):562–565 [M, from memory];
-    METHODS.md section 3.
+    docs/methods.md §9.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     return _tests(d.y, clipped_logit(d.p), d.w, d.n1, d.n0, min_events)

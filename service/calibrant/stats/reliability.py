@@ -121,7 +121,7 @@ def reliability_diagram(
     Edge cases: empty → status undefined with all bins empty.
 
     References: Wilson (1927), JASA 22(158):209–212 [M, from memory];
-    Naeini, Cooper & Hauskrecht (2015); METHODS.md 4.3.
+    Naeini, Cooper & Hauskrecht (2015); docs/methods.md §12.
     """
     n_bins = check_n_bins(n_bins)
     strategy = check_strategy(strategy)

@@ -49,7 +49,7 @@ __all__ = [
     "squared_error_sums_from_power_sums",
 ]
 
-#: a "confident error": y = 1 with p < 1e-6, or y = 0 with p > 1 − 1e-6 (METHODS.md 0.1.4)
+#: a "confident error": y = 1 with p < 1e-6, or y = 0 with p > 1 − 1e-6 (docs/methods.md §1.2)
 CONFIDENT_ERROR_THRESHOLD = 1e-6
 
 _EMPTY = "empty window: no rows with positive weight"
@@ -102,7 +102,7 @@ def log_loss(
     Hand check: y = (1, 0), p = (0, 0) → (36.04 + 0)/2 = 18.0218.
 
     References: Good (1952) [M, from memory]; Gneiting & Raftery (2007),
-    JASA 102(477):359–378 [M]; METHODS.md section 1 and 0.1.
+    JASA 102(477):359–378 [M]; docs/methods.md §5 and 0.1.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     y, p, w = d.y, d.p, d.w
@@ -143,7 +143,7 @@ def expected_log_loss(
 
     Edge cases: empty → no_value; p ∈ {0, 1} contribute 0 to both terms.
 
-    Reference: METHODS.md section 1 [D, derived there]; the standardised-score
+    Reference: docs/methods.md §5 [D, derived there]; the standardised-score
     idea is Seillier-Moiseiwitsch & Dawid (1993), JASA 88(421):355–359.
     """
     if y_true is not None:
@@ -171,7 +171,7 @@ def log_loss_calibration_z_from_sums(
 
     ``n1`` and ``max_term`` (max_i p_i(1 − p_i)x_i² over single observations) are optional;
     when given, ``extra['normal_approximation_ok']`` is 0 if n1 < 10, n0 < 10 or
-    the largest term exceeds 10 % of Sv (METHODS.md 0.3): then prefer a
+    the largest term exceeds 10 % of Sv (docs/methods.md §3): then prefer a
     parametric bootstrap p-value.
     """
     if n <= 0:
@@ -200,7 +200,7 @@ def log_loss_calibration_z(
     """Log-loss calibration test z_LL = (LL − E0[LL]) / SD0, two-sided normal p in ``extra``.
 
     Equals −Σ x_i(y_i − p_i)/sqrt(Σ x_i² p_i(1 − p_i)) (score-test family with
-    weight −logit(p), METHODS.md 0.3). z > 0: the model loses more than a
+    weight −logit(p), docs/methods.md §3). z > 0: the model loses more than a
     calibrated forecaster with the same p would (typically too extreme);
     z < 0: too timid. One-degree-of-freedom test, not omnibus.
 
@@ -209,7 +209,7 @@ def log_loss_calibration_z(
 
     References: Seillier-Moiseiwitsch & Dawid (1993), JASA 88(421):355–359
     (standardised scores; this exact log-score form is [M, from memory]);
-    METHODS.md section 1 [D].
+    docs/methods.md §5.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     y, p, w = d.y, d.p, d.w
@@ -259,7 +259,7 @@ def log_loss_skill(
     Edge cases: empty, or one class with π = ȳ (LL_ref = 0) → no_value.
 
     References: McFadden (1974) [M, from memory]; Good (1952) [M];
-    METHODS.md section 1.
+    docs/methods.md §5.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     return log_loss_skill_from_sums(d.n, d.n1, float(d.w @ log_loss_terms(d.y, d.p)), pi0=pi0)
@@ -312,7 +312,7 @@ def brier_score(
 
     References: Brier (1950), Monthly Weather Review 78(1):1–3 [M, from memory];
     Bradley, Schwartz & Hashino (2008), Weather and Forecasting 23(5):992–1006
-    (sampling variance); METHODS.md section 2.
+    (sampling variance); docs/methods.md §6.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     se2 = (d.p - d.y) ** 2
@@ -338,7 +338,7 @@ def expected_brier(
     Spiegelhalter's z (:func:`calibrant.stats.calibration.spiegelhalter_z`).
 
     References: Spiegelhalter (1986), Statistics in Medicine 5(5):421–433;
-    Rufibach (2010), J Clin Epidemiol 63(8):938–939; METHODS.md section 2.
+    Rufibach (2010), J Clin Epidemiol 63(8):938–939; docs/methods.md §6.
     """
     if y_true is not None:
         d = as_labeled(y_true, y_proba, sample_weight)
@@ -398,7 +398,7 @@ def brier_skill_score(
     Edge cases: empty or BS_ref = 0 (one class with π = ȳ) → no_value.
 
     References: Bradley, Schwartz & Hashino (2008), Weather and Forecasting
-    23(5):992–1006; METHODS.md section 2.
+    23(5):992–1006; docs/methods.md §6.
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     return brier_skill_score_from_sums(d.n, d.n1, float(d.w @ ((d.p - d.y) ** 2)), pi0=pi0)

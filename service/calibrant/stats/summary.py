@@ -1,17 +1,17 @@
 """The mergeable summary: per (fine logit bin, outcome class) sufficient statistics.
 
 A summary of a set of predictions holds, for every non-empty cell (fine bin k,
-class c), the sums of METHODS.md 0.2:
+class c), the sums of docs/methods.md §2:
 
     n, S1..S4 = Σp..Σp⁴, Sx, Sxx = Σx, Σx², Sl, Sll = Σℓ, Σℓ², SH = ΣH(p),
     Sv = Σ p(1−p)x²,
 
-plus the counts of clipped rows and of confident errors (METHODS.md 0.1.4),
+plus the counts of clipped rows and of confident errors (docs/methods.md §1.2),
 with x = logit(clip(p, ε, 1−ε)), ℓ the clipped per-observation log-loss and
 ε = float64 machine epsilon (what ``sklearn.metrics.log_loss`` uses for
 float64 input). Three classes are kept apart: labeled negative, labeled
 positive and unlabeled. Unlabeled rows store ℓ as if y = 0, because the
-only way they enter label metrics is as implicit negatives (METHODS.md 8);
+only way they enter label metrics is as implicit negatives (docs/methods.md §19);
 :meth:`Summary.labeled` decides at query time whether they count.
 
 Merging is field-wise addition, so it is associative and commutative up to
@@ -62,7 +62,7 @@ NEGATIVE = 0
 UNLABELED = -1
 _N_CLASSES = 3  # internal class index: 0 negative, 1 positive, 2 unlabeled
 
-# The 11 sums of METHODS.md 0.2, then two counts it asks to report beside log-loss
+# The 11 sums of docs/methods.md §2, then two counts it asks to report beside log-loss
 # (0.1.4): rows with p clipped (p < ε or p > 1 − ε) and confident errors (y = 1 with
 # p < 1e-6, y = 0 — or unlabeled — with p > 1 − 1e-6).
 FIELDS = ("n", "s1", "s2", "s3", "s4", "sx", "sxx", "sl", "sll", "sh", "sv", "n_clip", "n_conf")
@@ -121,7 +121,7 @@ def _row_fields(p: np.ndarray, y_loss: np.ndarray) -> Iterator[np.ndarray]:
     x = logit(pc)
     yield x
     yield x * x
-    # ℓ = −ln(1 − p) − y·x on the clipped p (METHODS.md 1)
+    # ℓ = −ln(1 − p) − y·x on the clipped p (docs/methods.md §5)
     loss = -np.log1p(-pc) - y_loss * x
     del pc
     yield loss
@@ -253,7 +253,7 @@ class Summary:
             return Summary.empty()
         weighted = {s._weighted for s in parts}
         if len(weighted) > 1:
-            raise ValueError("cannot merge weighted with unweighted summaries (METHODS.md 0)")
+            raise ValueError("cannot merge weighted with unweighted summaries (docs/methods.md §2)")
         if len(parts) == 1:
             return parts[0]
         total = np.zeros((_N_CELLS, N_FIELDS))

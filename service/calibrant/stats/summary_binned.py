@@ -2,7 +2,7 @@
 as unions of fine bins, recalibration fits on bin-mean logits.
 
 Each function feeds the array module's ``*_from_*`` kernel with per-bin
-values, so the definitions are the array version's (METHODS.md 0.2):
+values, so the definitions are the array version's (docs/methods.md §2):
 
 * AUC, DeLong SE, average precision: every fine bin is one tied score. AUC
   error ≤ ½ Σ_k n1k n0k/(n1 n0) (reported as ``extra['binning_error_bound']``).
@@ -133,7 +133,7 @@ def ece(data: Summary | LabeledBins, *, n_bins: int = 10, strategy: str = "unifo
     """Positive-class ECE (MCE in ``extra``); exact for uniform bins, snapped edges for quantile.
 
     Bins are left-closed [lo, hi) like the fine grid (the array version's
-    ``closed="left"``). Naeini, Cooper & Hauskrecht (2015); METHODS.md 4.3.
+    ``closed="left"``). Naeini, Cooper & Hauskrecht (2015); docs/methods.md §12.
     """
     v = view(data, implicit_negatives)
     idx, edges = coarse_bins(v, n_bins=n_bins, strategy=strategy)
@@ -182,7 +182,7 @@ def calibration_intercept(data: Summary | LabeledBins, *, implicit_negatives: bo
     y, x, w = _bin_rows(v)
     res = calibration_intercept_from_logits(y, x, sample_weight=w)
     if res.measured:
-        res.extra["approximation"] = "per-class bin-mean logits (METHODS.md 3, from the summary)"
+        res.extra["approximation"] = "per-class bin-mean logits (docs/methods.md §9, from the summary)"
     return res
 
 
@@ -222,7 +222,7 @@ def integrated_calibration_index(data: Summary | LabeledBins, *,
     """ICI / E50 / E90 / Emax with the array version's lowess fitted to fine-bin means.
 
     x = mean p of each fine bin, y = its event rate, weight = its count; then
-    d_k = |ĝ(f̄_k) − f̄_k| weighted by n_k. Approximate (METHODS.md 4.4).
+    d_k = |ĝ(f̄_k) − f̄_k| weighted by n_k. Approximate (docs/methods.md §14).
     """
     v = view(data, implicit_negatives)
     n1k, n0k = v.pos[:, F["n"]], v.neg[:, F["n"]]

@@ -3,7 +3,7 @@
 Score drift needs no labels, so every prediction counts (all three classes).
 Bins are frozen from the reference: its B-quantiles (default deciles) snapped
 to the nearest fine edge, so PSI and Jensen–Shannon are exact on those bins
-(METHODS.md 0.2 and 6.1); the snapped edges are part of the result. KS is
+(docs/methods.md §2 and 6.1); the snapped edges are part of the result. KS is
 evaluated at every fine edge: a lower bound on the row-level D, short by at
 most the largest fine-bin mass (reported). The statistics are the array
 module's ``*_from_counts`` kernels (:mod:`calibrant.stats.drift`).
@@ -88,7 +88,7 @@ def score_drift(
     """PSI (+½ per bin by default), KS and Jensen–Shannon distance (base 2, unsmoothed).
 
     Reference levels for the sample sizes: PSI ``extra['null_95']`` =
-    χ²_{0.95,B−1}(1/n + 1/m) (METHODS.md 6.2, [D]); JS ``extra['null_95']`` from
+    χ²_{0.95,B−1}(1/n + 1/m) (docs/methods.md §17.2, [D]); JS ``extra['null_95']`` from
     ``n_null`` seeded multinomial draws; KS p-value from the asymptotic
     two-sample law. Pass ``bins`` to keep them frozen across windows.
 

@@ -2,13 +2,13 @@
 
 Every function here calls the same ``*_from_sums`` kernel as the array
 version in :mod:`calibrant.stats.scoring` / :mod:`calibrant.stats.calibration`,
-so the summary and the array path agree to float64 rounding (METHODS.md 0.2:
+so the summary and the array path agree to float64 rounding (docs/methods.md §2:
 n, O, E, O/E, log-loss and its SE, E0, SD0, z_LL, Brier and its SE,
 Spiegelhalter's z are exact from the bucket).
 
 Label metrics take a :class:`~calibrant.stats.summary.LabeledBins` view, or a
 summary plus ``implicit_negatives`` (whether unlabeled rows count as y = 0 or
-are left out; METHODS.md 8). Binned statistics live in
+are left out; docs/methods.md §19). Binned statistics live in
 :mod:`calibrant.stats.summary_binned`, score drift in
 :mod:`calibrant.stats.summary_drift`; :func:`all_metrics` gathers everything
 the metrics API reports.
@@ -140,7 +140,7 @@ def observed_rate(data: Summary | LabeledBins, *, implicit_negatives: bool = Fal
 
 def observed_expected(data: Summary | LabeledBins, *, implicit_negatives: bool = False
                       ) -> Estimate:
-    """O/E = Σy/Σp with exp(ln(O/E) ± 1.96 sqrt(1/O − 1/n)) and the O − E z (METHODS.md 3)."""
+    """O/E = Σy/Σp with exp(ln(O/E) ± 1.96 sqrt(1/O − 1/n)) and the O − E z (docs/methods.md §9)."""
     t = _Totals(view(data, implicit_negatives))
     return observed_expected_from_sums(t.n, t.n1, t["all", "s1"], t["all", "s1"] - t["all", "s2"])
 
@@ -149,7 +149,7 @@ def observed_expected(data: Summary | LabeledBins, *, implicit_negatives: bool =
 def log_loss(data: Summary | LabeledBins, *, implicit_negatives: bool = False) -> Estimate:
     """Mean clipped log-loss Sl/n, SE sqrt((Sll − Sl²/n)/(n − 1)/n), normal 95 % interval.
 
-    Exact from the bucket (METHODS.md 1 and 0.2); ``extra`` carries ε and the
+    Exact from the bucket (docs/methods.md §5 and 0.2); ``extra`` carries ε and the
     clipped / confident-error counts stored in the summary.
     """
     t = _Totals(view(data, implicit_negatives))
@@ -163,7 +163,7 @@ def _count(x: float) -> float | int:
 
 
 def expected_log_loss(data: Summary | LabeledBins) -> Estimate:
-    """E0[LL] = ΣH(p)/n with null SD sqrt(Σp(1−p)x²)/n as ``se`` (METHODS.md 1, [D]).
+    """E0[LL] = ΣH(p)/n with null SD sqrt(Σp(1−p)x²)/n as ``se`` (docs/methods.md §5, [D]).
 
     Needs no labels: a summary gives every prediction, a view its labeled rows.
     """
@@ -173,7 +173,7 @@ def expected_log_loss(data: Summary | LabeledBins) -> Estimate:
 
 def log_loss_calibration_z(data: Summary | LabeledBins, *, implicit_negatives: bool = False
                            ) -> Estimate:
-    """z_LL = (Sl − SH)/sqrt(Sv) with two-sided normal p (METHODS.md 1 and 0.3).
+    """z_LL = (Sl − SH)/sqrt(Sv) with two-sided normal p (docs/methods.md §5 and 0.3).
 
     The summary does not keep the largest single term, so the
     ``normal_approximation_ok`` flag of the array version is not reported.
@@ -219,7 +219,7 @@ def brier_skill_score(data: Summary | LabeledBins, *, implicit_negatives: bool =
 def spiegelhalter_z(data: Summary | LabeledBins, *, implicit_negatives: bool = False
                     ) -> Estimate:
     """Spiegelhalter's z from power sums: numerator n1 − 2Σ_{y=1}p − Σp + 2Σp²,
-    variance Σ(p − 5p² + 8p³ − 4p⁴) (METHODS.md 4.1; Spiegelhalter 1986).
+    variance Σ(p − 5p² + 8p³ − 4p⁴) (docs/methods.md §10; Spiegelhalter 1986).
 
     Precision: the power-sum variance carries an absolute rounding error of
     about ε·Σp, negligible unless nearly every p lies within ~1e-6 of 0 or 1

@@ -3,7 +3,7 @@
 A batch is first copied into a per-connection temporary table, then merged
 into the real table with set-based SQL that is the same on both dialects.
 PostgreSQL fills the staging table with binary ``COPY`` (about 5x faster than
-multi-row INSERT here, see ENGINEERING notes); SQLite with one
+multi-row INSERT here, measured by tests/bench/ingest.py); SQLite with one
 ``executemany`` inside the already-open write transaction.
 
 ``append_if_all_new`` is the PostgreSQL fast path for the common clean

@@ -3,7 +3,7 @@
 Maturity time of a case (the charts' processing order is (matured_at, case_id)):
 
 * with an outcome horizon H and lag L: the end of its scored hour + H + L, the
-  moment its bucket becomes mature (DESIGN 3), whether or not a label came;
+  moment its bucket becomes mature (docs/architecture.md, data semantics), whether or not a label came;
 * without a horizon: the later of ``scored_at`` and the ``observed_at`` of the
   case's first label (it is mature once both are known), no earlier than L days
   before now. A correction keeps that time (``Outcome.first_observed_at``), so a
