@@ -1,10 +1,10 @@
 """PSI of each period against the model's reference: a range of its own traffic or an uploaded set.
 
 The expected PSI is numpy on the raw rows. The bins are the reference's
-deciles snapped to the fine grid (METHODS 6.1, summary_drift): for each k/10
+deciles snapped to the fine grid (docs/methods.md §17.1, summary_drift): for each k/10
 the fine edge whose cumulative reference share is nearest; the test rebuilds
 the grid from its definition and bins the raw rows itself. PSI = Σ (a − e)
-ln(a/e) with ½ added to every count (METHODS 6.2).
+ln(a/e) with ½ added to every count (docs/methods.md §17.2).
 """
 
 from __future__ import annotations

@@ -7,10 +7,12 @@ request models here describe the same rules so /docs stays accurate.
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Any, Literal
+from typing import Annotated, Any, ClassVar, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from calibrant.api.instant import Instant
+from calibrant.api.sparse import SparseModel
 from calibrant.api.webhook_schemas import OutboxHealth
 
 
@@ -61,6 +63,28 @@ class ModelCountsOut(BaseModel):
     labeled: int = Field(description="Predictions that have an outcome.")
 
 
+class TrafficReferenceOut(BaseModel):
+    """The model's own predictions scored in [start, end) are its reference."""
+
+    kind: Literal["traffic"]
+    start: Instant
+    end: Instant
+    version: str | None = Field(description="The one version used; null: all versions.")
+
+
+class UploadedReferenceOut(BaseModel):
+    """An uploaded validation set is the model's reference."""
+
+    kind: Literal["uploaded"]
+    n: int = Field(description="Probabilities in the uploaded set.")
+    labeled: bool = Field(description="Whether the set came with labels.")
+    description: str
+    uploaded_at: Instant
+
+
+ReferenceOut = Annotated[TrafficReferenceOut | UploadedReferenceOut, Field(discriminator="kind")]
+
+
 class ModelOut(BaseModel):
     name: str
     description: str
@@ -68,9 +92,9 @@ class ModelOut(BaseModel):
     outcome_lag_days: int
     implicit_negatives: bool
     segment_keys: list[str]
-    reference: dict[str, Any] | None
-    created_at: datetime
-    updated_at: datetime
+    reference: ReferenceOut | None = Field(description="What score drift is judged against; null: none.")
+    created_at: Instant
+    updated_at: Instant
     counts: ModelCountsOut | None = None
 
 
@@ -82,15 +106,15 @@ class ModelList(BaseModel):
 class CasePrediction(BaseModel):
     version: str
     probability: float
-    scored_at: datetime
+    scored_at: Instant
     tags: dict[str, str]
-    received_at: datetime
+    received_at: Instant
 
 
 class CaseOutcome(BaseModel):
     label: int
-    observed_at: datetime
-    received_at: datetime
+    observed_at: Instant
+    received_at: Instant
     revision: int
 
 
@@ -102,10 +126,19 @@ class CaseOut(BaseModel):
     history: list[CaseOutcome] = Field(description="Every label the case has had, oldest first.")
 
 
+class HealthDetail(SparseModel):
+    """``dialect`` when the database answers, ``error`` when it does not."""
+
+    omitted_when_absent: ClassVar[frozenset[str]] = frozenset({"dialect", "error"})
+
+    dialect: str | None = Field(None, description="The database dialect, e.g. sqlite or postgresql.")
+    error: str | None = Field(None, description="The kind of error that kept the database from answering.")
+
+
 class Health(BaseModel):
     status: Literal["ok", "degraded"]
     database: Literal["ok", "unreachable"]
-    detail: dict[str, Any] = Field(default_factory=dict)
+    detail: HealthDetail = Field(default_factory=HealthDetail)
     outbox: OutboxHealth | None = Field(None, description="Webhook deliveries waiting, failing targets.")
 
 
@@ -133,10 +166,15 @@ def request_body(model: type[BaseModel]) -> dict[str, Any]:
 
 
 def add_body_schemas(openapi: dict[str, Any]) -> dict[str, Any]:
-    """Put the raw-read body models, and the models they nest, into components/schemas."""
+    """Put the raw-read body models, and the models they nest, into components/schemas.
+
+    Two different models of one name would silently replace each other's schema: refused.
+    """
     components = openapi.setdefault("components", {}).setdefault("schemas", {})
     for model in _RAW_BODY_MODELS:
         schema = model.model_json_schema(ref_template=_REF)
-        components.update(schema.pop("$defs", {}))
-        components[model.__name__] = schema
+        for name, nested in [*schema.pop("$defs", {}).items(), (model.__name__, schema)]:
+            if components.get(name, nested) != nested:
+                raise ValueError(f"two schemas are named {name!r} in the OpenAPI document")
+            components[name] = nested
     return openapi

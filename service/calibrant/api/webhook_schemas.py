@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
-from datetime import datetime
 from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
+
+from calibrant.api.instant import Instant
 
 EventType = Literal["alarm.opened", "alarm.resolved"]
 MODEL_NAME = r"^[a-z0-9][a-z0-9_-]{0,63}$"
@@ -40,11 +41,11 @@ class WebhookOut(BaseModel):
     model: str | None
     types: list[EventType] = Field(description="Event types this receiver gets.")
     failing: bool = Field(description="True after repeated consecutive failed attempts.")
-    failing_since: datetime | None
+    failing_since: Instant | None
     consecutive_failures: int
-    last_success_at: datetime | None
-    created_at: datetime
-    updated_at: datetime
+    last_success_at: Instant | None
+    created_at: Instant
+    updated_at: Instant
 
 
 class WebhookCreated(WebhookOut):
@@ -60,11 +61,11 @@ class WebhookList(BaseModel):
 
 class AttemptOut(BaseModel):
     number: int
-    attempted_at: datetime
+    attempted_at: Instant
     status_code: int | None = Field(description="The receiver's HTTP status; null if none came back.")
     latency_ms: float
     error: str | None = Field(description="Connection error, timeout or refused address.")
-    next_attempt_at: datetime | None = Field(description="When the next retry is due; null if none.")
+    next_attempt_at: Instant | None = Field(description="When the next retry is due; null if none.")
 
 
 class DeliveryOut(BaseModel):
@@ -72,9 +73,9 @@ class DeliveryOut(BaseModel):
     webhook_id: str = Field(description="The `webhook-id` header, the same on every attempt.")
     type: str = Field(description="The event type, as in the payload's `type`.")
     state: Literal["pending", "delivered", "failed"]
-    created_at: datetime
-    next_attempt_at: datetime | None
-    finished_at: datetime | None
+    created_at: Instant
+    next_attempt_at: Instant | None
+    finished_at: Instant | None
     attempts: list[AttemptOut]
 
 
@@ -86,5 +87,5 @@ class DeliveryList(BaseModel):
 class OutboxHealth(BaseModel):
     pending: int = Field(description="Deliveries not yet delivered or given up.")
     due: int = Field(description="Pending deliveries whose next attempt is due now.")
-    oldest_pending_at: datetime | None
+    oldest_pending_at: Instant | None
     failing_webhooks: list[int] = Field(description="Ids of targets that keep failing.")

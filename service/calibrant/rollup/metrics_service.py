@@ -71,13 +71,14 @@ def _selection(model: Model, start: str | None, end: str | None, version: str | 
 
 
 def serialise(metrics: dict[str, Estimate]) -> dict[str, Any]:
-    """API shape: every key a number or null, ``k_ci`` for interval keys, a status per key not measured."""
+    """API shape: every count an int (0 when there is none), every metric a number or null,
+    ``k_ci`` for interval keys, a status per key not measured."""
     out: dict[str, Any] = {}
     status: dict[str, dict[str, str]] = {}
     for key in (*query.COUNT_KEYS, *query.METRIC_KEYS):
         est = metrics[key]
         value = est.value
-        out[key] = round(value) if key in query.COUNT_KEYS and value is not None else value
+        out[key] = count(value) if key in query.COUNT_KEYS else value
         if key in INTERVAL_KEYS:
             out[f"{key}_ci"] = list(est.ci) if est.ci is not None and value is not None else None
         if value is None or not est.measured:
@@ -179,11 +180,16 @@ def reliability(
     }
 
 
+def count(value: float | None) -> int:
+    """A count summed from float summaries (whole numbers, held as floats) as an int; none is 0."""
+    return 0 if value is None else round(value)
+
+
 def diagram_dict(diagram: ReliabilityDiagram) -> dict[str, Any]:
     """The reliability diagram as plain data: per bin its edges, count, mean predicted,
     observed rate and the Wilson 95 % interval of the observed rate."""
     return {
-        "n": diagram.n,
+        "n": count(diagram.n),
         "closed": diagram.closed,
         "interval": diagram.interval,
         "status": {"state": diagram.status.value, "reason": diagram.reason},
@@ -191,7 +197,7 @@ def diagram_dict(diagram: ReliabilityDiagram) -> dict[str, Any]:
             {
                 "lower": b.lower,
                 "upper": b.upper,
-                "count": b.count,
+                "count": count(b.count),
                 "mean_predicted": b.mean_predicted,
                 "observed_rate": b.observed_rate,
                 "observed_rate_ci": None if b.ci_low is None else [b.ci_low, b.ci_high],

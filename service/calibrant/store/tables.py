@@ -73,7 +73,7 @@ class Prediction(Base):
     model_id: Mapped[int] = mapped_column(Integer, primary_key=True)
     case_id: Mapped[str] = mapped_column(case_id_type(), primary_key=True)
     version: Mapped[str] = mapped_column(String(64), primary_key=True)
-    probability: Mapped[float] = mapped_column(Double)  # float64; never float32 (METHODS 0.1)
+    probability: Mapped[float] = mapped_column(Double)  # float64; never float32 (docs/methods.md §1.2)
     scored_at: Mapped[datetime]
     tags: Mapped[str | None] = mapped_column(Text, nullable=True)  # canonical JSON, sorted keys
     received_at: Mapped[datetime]

@@ -7,6 +7,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Query, Request
 
 from calibrant.alarms import service
+from calibrant.api.alarm_schemas import AlarmList, AlarmOut
 from calibrant.api.auth import Principal, requires
 from calibrant.api.routes.rules import _json_object
 from calibrant.api.runtime import Runtime
@@ -19,7 +20,8 @@ Reader = Annotated[Principal, Depends(requires(Scope.READ))]
 Admin = Annotated[Principal, Depends(requires(Scope.ADMIN))]
 
 
-@router.get("", responses=PROBLEM_RESPONSES, summary="Alarms, newest first, filtered")
+@router.get("", response_model=AlarmList, responses=PROBLEM_RESPONSES,
+            summary="Alarms, newest first, filtered")
 async def list_alarms(
     model: str, request: Request, _caller: Reader,
     state: Annotated[str | None, Query(description="open or resolved")] = None,
@@ -34,7 +36,8 @@ async def list_alarms(
     return {"model": model, "alarms": alarms, "count": len(alarms)}
 
 
-@router.get("/{alarm_id}", responses=PROBLEM_RESPONSES, summary="One alarm with its evidence")
+@router.get("/{alarm_id}", response_model=AlarmOut, responses=PROBLEM_RESPONSES,
+            summary="One alarm with its evidence")
 async def get_alarm(model: str, alarm_id: int, request: Request, _caller: Reader) -> dict[str, Any]:
     runtime: Runtime = request.app.state.runtime
 
@@ -48,7 +51,7 @@ async def get_alarm(model: str, alarm_id: int, request: Request, _caller: Reader
     return await runtime.run(work)
 
 
-@router.post("/{alarm_id}/resolve", responses=PROBLEM_RESPONSES,
+@router.post("/{alarm_id}/resolve", response_model=AlarmOut, responses=PROBLEM_RESPONSES,
              summary="Resolve an open alarm ({note?}); a chart alarm restarts its chart")
 async def resolve(model: str, alarm_id: int, request: Request, caller: Admin) -> dict[str, Any]:
     runtime: Runtime = request.app.state.runtime

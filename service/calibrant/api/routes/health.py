@@ -9,7 +9,7 @@ from sqlalchemy.exc import SQLAlchemyError
 from starlette.concurrency import run_in_threadpool
 
 from calibrant.api.runtime import Runtime
-from calibrant.api.schemas import Health
+from calibrant.api.schemas import Health, HealthDetail
 from calibrant.api.webhook_schemas import OutboxHealth
 from calibrant.store import outbox_repo, webhook_targets_repo
 
@@ -30,11 +30,11 @@ async def healthz(request: Request) -> JSONResponse:
 
     error = await run_in_threadpool(probe)
     if error:
-        health = Health(status="degraded", database="unreachable", detail={"error": error})
-        return JSONResponse(health.model_dump(), status_code=503)
+        health = Health(status="degraded", database="unreachable", detail=HealthDetail(error=error))
+        return JSONResponse(health.model_dump(mode="json"), status_code=503)
     outbox = await run_in_threadpool(_outbox, runtime)
     health = Health(
-        status="ok", database="ok", detail={"dialect": runtime.engine.dialect.name}, outbox=outbox
+        status="ok", database="ok", detail=HealthDetail(dialect=runtime.engine.dialect.name), outbox=outbox
     )
     return JSONResponse(health.model_dump(mode="json"))
 

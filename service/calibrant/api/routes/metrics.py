@@ -8,6 +8,7 @@ from fastapi import APIRouter, Depends, Query, Request
 
 from calibrant.api.auth import Principal, requires
 from calibrant.api.body import read_capped
+from calibrant.api.metric_schemas import MetricsOut, ReferenceUploadOut, ReliabilityOut
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import PROBLEM_RESPONSES
 from calibrant.rollup import metrics_service, references
@@ -25,6 +26,7 @@ TAG = Query([], description="One filter key:value on a declared segment key.")
 
 @router.get(
     "/metrics",
+    response_model=MetricsOut,
     responses=PROBLEM_RESPONSES,
     summary="Log-loss, Brier, calibration and more per day, ISO week or month (UTC)",
 )
@@ -50,6 +52,7 @@ async def get_metrics(
 
 @router.get(
     "/reliability",
+    response_model=ReliabilityOut,
     responses=PROBLEM_RESPONSES,
     summary="Reliability-diagram data: per bin mean predicted, observed rate, count, interval",
 )
@@ -75,6 +78,7 @@ async def get_reliability(
 
 @router.post(
     "/reference",
+    response_model=ReferenceUploadOut,
     responses=PROBLEM_RESPONSES,
     summary="Upload a validation set (probabilities, optional labels) as the model's reference",
 )

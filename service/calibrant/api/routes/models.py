@@ -56,7 +56,7 @@ async def list_models(request: Request, _caller: Reader) -> ModelList:
     "/{model}",
     response_model=ModelOut,
     openapi_extra=request_body(ModelSettingsPatch),
-    responses={**PROBLEM_RESPONSES, 201: {"description": "Created with these settings."}},
+    responses={**PROBLEM_RESPONSES, 201: {"model": ModelOut, "description": "Created with these settings."}},
     summary="Create a model or change its settings (absent fields unchanged)",
 )
 async def put_model(model: str, request: Request, response: Response, caller: Admin) -> ModelOut:

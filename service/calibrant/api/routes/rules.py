@@ -8,6 +8,7 @@ import orjson
 from fastapi import APIRouter, Depends, Query, Request, Response
 
 from calibrant.alarms import backtest, service
+from calibrant.api.alarm_schemas import BacktestOut, RuleList, RuleOut
 from calibrant.api.auth import Principal, requires
 from calibrant.api.body import read_capped
 from calibrant.api.runtime import Runtime
@@ -32,7 +33,7 @@ async def _json_object(request: Request) -> dict[str, Any]:
     return doc
 
 
-@router.get("", responses=PROBLEM_RESPONSES,
+@router.get("", response_model=RuleList, responses=PROBLEM_RESPONSES,
             summary="The model's rules, each with what it detects, its minimum data and false-alarm rate")
 async def list_rules(model: str, request: Request, _caller: Reader) -> dict[str, Any]:
     runtime: Runtime = request.app.state.runtime
@@ -40,7 +41,7 @@ async def list_rules(model: str, request: Request, _caller: Reader) -> dict[str,
     return {"model": model, "rules": rules, "count": len(rules)}
 
 
-@router.post("", status_code=201, responses=PROBLEM_RESPONSES,
+@router.post("", response_model=RuleOut, status_code=201, responses=PROBLEM_RESPONSES,
              summary="Add a rule: {name, kind, params?, enabled?}")
 async def create_rule(model: str, request: Request, caller: Admin) -> dict[str, Any]:
     runtime: Runtime = request.app.state.runtime
@@ -49,13 +50,14 @@ async def create_rule(model: str, request: Request, caller: Admin) -> dict[str, 
         s, model, body, actor=caller.actor, now=runtime.clock.now()))
 
 
-@router.get("/{rule}", responses=PROBLEM_RESPONSES, summary="One rule, with its chart streams")
+@router.get("/{rule}", response_model=RuleOut, responses=PROBLEM_RESPONSES,
+            summary="One rule, with its chart streams")
 async def get_rule(model: str, rule: str, request: Request, _caller: Reader) -> dict[str, Any]:
     runtime: Runtime = request.app.state.runtime
     return await runtime.run(lambda s: service.get_rule(s, model, rule, runtime.clock.now()))
 
 
-@router.put("/{rule}", responses=PROBLEM_RESPONSES,
+@router.put("/{rule}", response_model=RuleOut, responses=PROBLEM_RESPONSES,
             summary="Change a rule: {params?, enabled?} (params merged; chart state restarts)")
 async def update_rule(model: str, rule: str, request: Request, caller: Admin) -> dict[str, Any]:
     runtime: Runtime = request.app.state.runtime
@@ -73,7 +75,7 @@ async def delete_rule(model: str, rule: str, request: Request, caller: Admin) ->
     return Response(status_code=204)
 
 
-@router.post("/{rule}/backtest", responses=PROBLEM_RESPONSES,
+@router.post("/{rule}/backtest", response_model=BacktestOut, responses=PROBLEM_RESPONSES,
              summary="When the rule would have crossed its limit over [start, end); stores and sends nothing")
 async def run_backtest(model: str, rule: str, request: Request, _caller: Reader,
                        start: Annotated[str | None, Query()] = None,

@@ -1,0 +1,135 @@
+"""Response models of /v1/models/{model}/rules and …/alarms: rules, chart streams, alarms, backtests."""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar, Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from calibrant.alarms.rules import Kind
+from calibrant.api.instant import Instant
+from calibrant.api.sparse import SparseModel
+
+RuleKind = Literal[tuple(k.value for k in Kind)]
+VersionScope = Literal["version", "all_versions"]
+
+
+class Segment(BaseModel):
+    key: str = Field(description="A declared segment key.")
+    value: str = Field(description="The tag value of that key.")
+
+
+class FalseAlarmStatement(SparseModel):
+    """What the rule promises about false alarms; ``level`` is absent for a chart (its budget is per year)."""
+
+    omitted_when_absent: ClassVar[frozenset[str]] = frozenset({"level"})
+
+    per_year: float | None = Field(description="Expected false alarms a year; null when none can be stated.")
+    scope: Literal["model", "rule"] = Field(description="model: one budget shared by every chart stream.")
+    statement: str = Field(description="The promise in words, with how it is kept.")
+    level: float | None = Field(None, description="Test level per evaluation; null: the rule has no test.")
+
+
+class ChartStreamOut(BaseModel):
+    version: str
+    segment: Segment | None = Field(description="null: every case of the version.")
+    designed: bool = Field(description="Whether the chart has its control limit yet.")
+    cusum_statistic: float | None = Field(description="The CUSUM statistic now; null before the design.")
+    control_limit: float | None = Field(description="The CUSUM crosses when its statistic exceeds this.")
+    cases_since_reset: int | None = Field(description="Cases fed since the chart last started at 0.")
+    consumed: int = Field(description="Mature labeled cases fed to the stream in all.")
+    skipped_late: int = Field(description="Cases that matured behind the watermark and were left out.")
+    unlabeled_at_maturity: int = Field(description="Cases that matured without an outcome.")
+    watermark_at: Instant | None = Field(description="Maturity time of the last case fed.")
+    design_error: str | None = Field(description="Why the limit could not be designed, if so.")
+
+
+class RuleOut(SparseModel):
+    """A rule with its self-description; ``streams`` for a chart, ``evaluated_through`` for a window rule."""
+
+    omitted_when_absent: ClassVar[frozenset[str]] = frozenset({"streams", "evaluated_through"})
+
+    name: str
+    kind: RuleKind
+    enabled: bool
+    is_default: bool = Field(description="Created by Calibrant for every model; may be changed or deleted.")
+    params: dict[str, Any] = Field(description="The kind's parameters, defaults filled in.")
+    detects: str = Field(description="What a crossing means.")
+    minimum_data: str = Field(description="The data the rule needs before it judges.")
+    false_alarms: FalseAlarmStatement
+    created_at: Instant
+    updated_at: Instant
+    streams: list[ChartStreamOut] | None = Field(None, description="Chart rules: one chart per stream.")
+    evaluated_through: Instant | None = Field(
+        None, description="Window rules: end of the last period judged; null: none yet."
+    )
+
+
+class RuleList(BaseModel):
+    model: str
+    rules: list[RuleOut]
+    count: int
+
+
+class AlarmEvidence(BaseModel):
+    """Why the rule crossed. statistic, interval and n are common to every kind; the others depend
+    on it (a window's period_start, period_end, granularity and detail; a chart's control_limit,
+    chart_path and design; starvation's checked_at). Times inside are RFC 3339 strings."""
+
+    model_config = ConfigDict(extra="allow")
+
+    statistic: float | None = Field(description="The value that was judged.")
+    interval: tuple[float, float] | None = Field(description="Its 95 % interval, when it has one.")
+    n: int = Field(description="Cases the statistic rests on.")
+
+
+class AlarmResolution(BaseModel):
+    """How an alarm was resolved; other fields depend on who resolved it and why."""
+
+    model_config = ConfigDict(extra="allow")
+
+    reason: str
+
+
+class AlarmOut(BaseModel):
+    id: int
+    rule: str
+    state: Literal["open", "resolved"]
+    version: str | None = Field(description="The version the alarm is about; null when about all of them.")
+    scope: VersionScope
+    segment: Segment | None = Field(description="null: every case.")
+    summary: str
+    crossed_at: Instant
+    opened_at: Instant
+    resolved_at: Instant | None
+    resolved_by: str | None = Field(description="'system', or the actor who resolved it.")
+    resolution: AlarmResolution | None
+    evidence: AlarmEvidence
+
+
+class AlarmList(BaseModel):
+    model: str
+    alarms: list[AlarmOut]
+    count: int
+
+
+class BacktestCrossing(BaseModel):
+    """One time the rule would have crossed its limit in a backtest."""
+
+    crossed_at: Instant
+    version: str | None = Field(description="null: the crossing is about all versions.")
+    scope: VersionScope
+    segment: Segment | None
+    summary: str
+    evidence: AlarmEvidence
+
+
+class BacktestOut(BaseModel):
+    model: str
+    rule: str
+    kind: RuleKind
+    start: Instant
+    end: Instant
+    crossing_count: int = Field(description="Every crossing found, also beyond those listed.")
+    crossings: list[BacktestCrossing] = Field(description="Oldest first, at most 1000.")
+    sent: int = Field(description="Notifications sent: always 0, a backtest sends nothing.")

@@ -1,0 +1,132 @@
+"""Response models of …/metrics, …/reliability and the uploaded reference.
+
+The period model is built from the rollup's own key lists (``COUNT_KEYS``,
+``METRIC_KEYS``, ``INTERVAL_KEYS``), so a metric added there appears here with
+its field, its ``_ci`` field when it has an interval, and its status key.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar, Literal
+
+from pydantic import BaseModel, Field, create_model
+
+from calibrant.api.instant import Instant
+from calibrant.api.schemas import UploadedReferenceOut
+from calibrant.api.sparse import SparseModel
+from calibrant.rollup.metrics_service import INTERVAL_KEYS
+from calibrant.rollup.periods import Granularity
+from calibrant.rollup.query import COUNT_KEYS, METRIC_KEYS
+from calibrant.stats.result import Status
+
+# Literal[...] over the runtime tuples: the schema lists exactly the states and keys the service uses.
+StatusState = Literal[tuple(s.value for s in Status)]
+MetricKey = Literal[(*COUNT_KEYS, *METRIC_KEYS)]
+GranularityName = Literal[tuple(g.value for g in Granularity)]
+
+DESCRIPTIONS: dict[str, str] = {
+    "n_predictions": "Predictions scored in the period (or its trailing window).",
+    "n_labeled": "Predictions of the period that have an outcome.",
+    "n_immature": "Predictions whose outcome horizon + lag has not yet passed; label metrics leave them out.",
+    "label_coverage": "n_labeled / n_predictions.",
+    "mean_probability": "Mean predicted probability over every prediction.",
+    "observed_rate": "Share of mature labeled predictions that had the event.",
+    "oe_ratio": "Observed events / expected events (sum of probabilities); 1 when calibrated in the large.",
+    "log_loss": "Mean negative log-likelihood of the outcomes, natural log.",
+    "log_loss_expected": "Log-loss to expect if the probabilities were calibrated (mean binary entropy).",
+    "brier": "Mean squared difference between probability and outcome.",
+    "brier_reliability": "Reliability term of the Murphy decomposition of the Brier score (lower is better).",
+    "brier_resolution": "Resolution term of the Murphy decomposition (higher is better).",
+    "brier_uncertainty": "Uncertainty term of the Murphy decomposition: observed rate × (1 − observed rate).",
+    "calibration_intercept": "Logistic intercept with logit(p) as offset; 0 when calibrated in the large.",
+    "calibration_slope": "Slope of the logistic regression of the outcome on logit(p); 1 when calibrated.",
+    "spiegelhalter_z": "Spiegelhalter's z statistic for calibration; near 0 when calibrated.",
+    "ece": "Expected calibration error: bin-weighted mean |observed rate − mean probability|.",
+    "auc": "Area under the ROC curve (discrimination).",
+    "psi": "Population stability index of the scores against the model's reference.",
+}
+
+
+class MetricStatus(BaseModel):
+    state: StatusState = Field(description="measured, too_few_cases or no_value.")
+    reason: str = Field(description="Why there is no trustworthy value, in words one can act on.")
+
+
+class _PeriodBase(SparseModel):
+    omitted_when_absent: ClassVar[frozenset[str]] = frozenset({"window_start"})
+
+    start: Instant = Field(description="Start of the calendar period (inclusive).")
+    end: Instant = Field(description="End of the calendar period (exclusive).")
+    window_start: Instant | None = Field(
+        None, description="Start of the trailing window the values describe; present only with `window`."
+    )
+
+
+def _description(key: str) -> str:
+    if key not in DESCRIPTIONS:
+        raise KeyError(f"metric {key!r} has no description in calibrant.api.metric_schemas.DESCRIPTIONS")
+    return DESCRIPTIONS[key]
+
+
+def _period_fields() -> dict[str, Any]:
+    fields: dict[str, Any] = {}
+    for key in COUNT_KEYS:
+        fields[key] = (int, Field(description=_description(key)))
+    for key in METRIC_KEYS:
+        fields[key] = (float | None, Field(description=_description(key)))
+        if key in INTERVAL_KEYS:
+            fields[f"{key}_ci"] = (
+                tuple[float, float] | None,
+                Field(description=f"95 % interval [low, high] of {key}; null when there is none."),
+            )
+    fields["status"] = (
+        dict[MetricKey, MetricStatus],
+        Field(description="For each metric without a measured value: its state and the reason."),
+    )
+    return fields
+
+
+MetricPeriod = create_model(
+    "MetricPeriod",
+    __base__=_PeriodBase,
+    __doc__="One calendar period: its counts, every metric, their intervals and statuses.",
+    **_period_fields(),
+)
+
+
+class MetricsOut(BaseModel):
+    model: str
+    granularity: GranularityName
+    version: str | None = Field(description="The version asked for; null: all versions pooled.")
+    tag: str | None = Field(description="The segment filter key:value asked for; null: every case.")
+    refreshed_at: Instant | None = Field(description="When summaries were last refreshed; null: never.")
+    periods: list[MetricPeriod] = Field(description="Oldest first.")
+
+
+class ReliabilityBin(BaseModel):
+    lower: float = Field(description="Lower edge of the bin.")
+    upper: float = Field(description="Upper edge of the bin.")
+    count: int = Field(description="Labeled predictions in the bin.")
+    mean_predicted: float | None = Field(description="Mean probability in the bin; null when empty.")
+    observed_rate: float | None = Field(description="Share with the event; null when empty.")
+    observed_rate_ci: tuple[float, float] | None = Field(
+        description="Wilson 95 % interval of the observed rate; null when empty."
+    )
+
+
+class ReliabilityOut(BaseModel):
+    model: str
+    start: Instant
+    end: Instant
+    strategy: Literal["uniform", "quantile"]
+    refreshed_at: Instant | None
+    n: int = Field(description="Mature labeled predictions in the diagram.")
+    closed: Literal["right", "left"] = Field(description="Which edge of a bin belongs to it.")
+    interval: str = Field(description="The interval method of observed_rate_ci.")
+    status: MetricStatus
+    bins: list[ReliabilityBin]
+
+
+class ReferenceUploadOut(BaseModel):
+    model: str
+    reference: UploadedReferenceOut
