@@ -21,7 +21,7 @@ import sqlalchemy as sa
 from fastapi.testclient import TestClient
 from hypothesis import settings as hypothesis_settings
 
-from calibrant.api.app import create_app
+from calibrant.app import create_app
 from calibrant.clock import Clock
 from calibrant.config import Settings
 from calibrant.store import migrate

@@ -9,29 +9,33 @@ import argparse
 import contextlib
 import sys
 from collections.abc import Sequence
+from typing import Any
 
 import uvicorn
 from pydantic import ValidationError
 
 from calibrant import scheduler
-from calibrant.api.app import create_app
+from calibrant.app import create_app
 from calibrant.clock import SystemClock
 from calibrant.config import Settings
+from calibrant.errors import field_errors
 from calibrant.jobs import JobContext, run_all
 from calibrant.store import audit, keys_repo, migrate
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.keys_repo import Scope
 
+_WHOLE = "settings"  # the field name field_errors gives a check on the settings as a whole
 
-def _settings(**overrides: object) -> Settings:
+
+def _settings(**overrides: Any) -> Settings:
     try:
         return Settings(**{k: v for k, v in overrides.items() if v is not None})
     except ValidationError as exc:
         # A model-level check has no field: it is about the settings as a whole, not one variable.
         lines = [
-            f"  CALIBRANT_{'_'.join(str(p) for p in e['loc']).upper()}: {e['msg']}" if e["loc"]
-            else f"  settings: {e['msg']}"
-            for e in exc.errors()
+            f"  settings: {e.message}" if e.field == _WHOLE
+            else f"  CALIBRANT_{e.field.replace('.', '_').upper()}: {e.message}"
+            for e in field_errors(exc, whole=_WHOLE)
         ]
         raise SystemExit("calibrant: invalid settings\n" + "\n".join(lines)) from None
 

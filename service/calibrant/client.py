@@ -28,7 +28,6 @@ RETRY_STATUSES = frozenset({429, 502, 503, 504})
 # Transport failures after which the request may or may not have reached the server;
 # resending is safe only because ingest is idempotent.
 RETRY_EXCEPTIONS = (httpx.TimeoutException, httpx.ConnectError, httpx.RemoteProtocolError, httpx.ReadError)
-TIME_FIELDS = ("scored_at", "observed_at")
 
 
 class CalibrantError(Exception):

@@ -126,10 +126,6 @@ class Settings(BaseSettings):
             return not is_loopback(self.host)
         return self.auth is AuthMode.REQUIRED
 
-    @property
-    def is_sqlite(self) -> bool:
-        return self.database_url.startswith("sqlite")
-
 
 def is_loopback(host: str) -> bool:
     """True when ``host`` can only be reached from this machine."""

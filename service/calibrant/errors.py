@@ -16,8 +16,9 @@ RFC 9457 problem document. Services raise these and never import FastAPI.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Protocol
 
 
 @dataclass(frozen=True, slots=True)
@@ -99,3 +100,30 @@ class Forbidden(CalibrantError):
 def invalid(field: str, message: str, index: int | None = None) -> InvalidInput:
     """Shorthand for a single-field 422."""
     return InvalidInput(f"{field}: {message}", [FieldError(index, field, message)])
+
+
+class HasErrorItems(Protocol):
+    """pydantic's ``ValidationError``, and FastAPI's ``RequestValidationError`` (the same items)."""
+
+    def errors(self) -> Sequence[Any]: ...
+
+
+def field_errors(
+    exc: HasErrorItems, prefix: str = "", *, whole: str = "body", source_first: bool = False
+) -> list[FieldError]:
+    """The one translation of pydantic's error items into ``FieldError``s.
+
+    An item's ``loc`` becomes a dotted field name under ``prefix`` ("params" + ("window",)
+    is ``params.window``). An item with no location is about the document as a whole and is
+    named ``prefix``, or ``whole`` without one. With ``source_first`` (FastAPI's request errors)
+    the first element says where the value was read from ("body", "query", "path") and is
+    dropped, unless nothing follows it.
+    """
+    out = []
+    for item in exc.errors():
+        loc = [str(part) for part in item["loc"]]
+        if source_first and len(loc) > 1:
+            loc = loc[1:]
+        name = ".".join(part for part in (prefix, *loc) if part)
+        out.append(FieldError(None, name or whole, item["msg"]))
+    return out

@@ -1,7 +1,9 @@
 """Every scheduled job, and "run them all until no work is left".
 
-Jobs are plain functions of (engine, clock, settings); each claims its units of
-work in the database, so any number of processes may run them at once.
+A job is a plain function of a ``JobContext`` that returns its figures (counts of
+what it did); each claims its units of work in the database, so any number of
+processes may run them at once. ``app.create_app`` and the ``calibrant`` command
+build the context; the scheduler and POST /v1/refresh call ``run_all``.
 """
 
 from __future__ import annotations
@@ -10,17 +12,26 @@ import os
 import socket
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
-
-from sqlalchemy import Engine
+from typing import TypedDict
 
 from calibrant.alarms import jobs as alarm_jobs
 from calibrant.clock import Clock
 from calibrant.config import Settings
 from calibrant.notify.jobs import deliver_due
-from calibrant.notify.senders import sender_from_settings
+from calibrant.notify.senders import Sender, sender_from_settings
 from calibrant.rollup.refresh import refresh_dirty
 from calibrant.store.engine import make_session_factory
+from calibrant.store.unit import Engine
+
+JobFigures = dict[str, int]
+"""What one job run did, as named counts ("buckets", "opened", "delivered", ...)."""
+
+
+class RunReport(TypedDict):
+    """``run_all``'s answer: the rounds it took and each job's figures, summed over them."""
+
+    rounds: int
+    jobs: dict[str, JobFigures]
 
 
 def worker_name() -> str:
@@ -35,20 +46,20 @@ class JobContext:
     engine: Engine
     clock: Clock
     settings: Settings
-    webhook_sender: Any = None  # notify.senders.Sender; None where nothing is delivered
+    webhook_sender: Sender | None = None  # None: the sender CALIBRANT_WEBHOOK_SENDER names
 
 
 @dataclass(frozen=True, slots=True)
 class Job:
     name: str
-    run: Callable[[JobContext], dict[str, Any]]
+    run: Callable[[JobContext], JobFigures]
 
 
-def _refresh(ctx: JobContext) -> dict[str, Any]:
+def _refresh(ctx: JobContext) -> JobFigures:
     return refresh_dirty(ctx.engine, ctx.clock, worker=worker_name()).as_dict()
 
 
-def _deliver(ctx: JobContext) -> dict[str, Any]:
+def _deliver(ctx: JobContext) -> JobFigures:
     sender = ctx.webhook_sender or sender_from_settings(
         ctx.settings.webhook_allow_private, ctx.settings.webhook_sender
     )
@@ -59,23 +70,23 @@ def _deliver(ctx: JobContext) -> dict[str, Any]:
 # so one round takes an ingest all the way to a webhook.
 JOBS: tuple[Job, ...] = (
     Job("refresh", _refresh),
-    Job("alarms", alarm_jobs.run),
+    Job("alarms", lambda ctx: alarm_jobs.run(ctx.engine, ctx.clock)),
     Job("deliver_webhooks", _deliver),
 )
 
 
-def run_all(ctx: JobContext, max_rounds: int = 20) -> dict[str, Any]:
+def run_all(ctx: JobContext, max_rounds: int = 20) -> RunReport:
     """Run every job until a whole round does no work; return what each did, summed."""
-    totals: dict[str, dict[str, Any]] = {job.name: {} for job in JOBS}
+    totals: dict[str, JobFigures] = {job.name: {} for job in JOBS}
     rounds = 0
     for rounds in range(1, max_rounds + 1):  # noqa: B007 — reported below
         busy = False
         for job in JOBS:
             done = job.run(ctx)
             for key, value in done.items():
-                if isinstance(value, int | float):
-                    totals[job.name][key] = totals[job.name].get(key, 0) + value
-            busy |= any(isinstance(v, int | float) and v > 0 for k, v in done.items() if k != "busy")
+                totals[job.name][key] = totals[job.name].get(key, 0) + value
+            # "busy" counts work held by another worker: not work this round did
+            busy |= any(v > 0 for k, v in done.items() if k != "busy")
         if not busy:
             break
     return {"rounds": rounds, "jobs": totals}

@@ -6,7 +6,7 @@ of docs/methods.md §17.2 for the week's n and the reference's m, floored at the
 0.1 — with at least 100 predictions. The reference is an uploaded Beta(2,8)
 validation set; weeks are Beta(2,8) (no shift) or Beta(4,6) (shifted), with
 the same volume. Expected PSI is the docs/methods.md §17.2 formula in numpy on the raw
-rows binned at the reference's snapped deciles (``tests.api.test_metrics_reference``);
+rows binned at the reference's snapped deciles (``tests.rollup.test_metrics_reference``);
 the level is scipy's χ² quantile. Each segment holds half the week, so its
 no-shift point exceeds 0.1: the sample-size-aware level decides there.
 """
@@ -23,8 +23,8 @@ from scipy import stats
 
 from calibrant.clock import FixedClock
 from tests.alarms.streams import T0, make_day, post_day, refresh, setup_model
-from tests.api.test_metrics_reference import psi_on, snapped_decile_edges
 from tests.conftest import Database, make_client
+from tests.rollup.test_metrics_reference import psi_on, snapped_decile_edges
 
 LEVEL, MIN_N = 0.01, 100  # the default rule's parameters (rules.DriftParams)
 # rule → its PSI floor: the default 0.1, and a rule without a floor, judged by the level alone

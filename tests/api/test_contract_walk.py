@@ -23,7 +23,7 @@ import httpx
 import numpy as np
 from fastapi.testclient import TestClient
 
-from calibrant.api.app import create_app
+from calibrant.app import create_app
 from calibrant.clock import FixedClock
 from calibrant.notify.senders import RecordingSender
 from tests.alarms.streams import T0, Day, iso, post_day, post_outcomes, refresh

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from fastapi.testclient import TestClient
 
-from calibrant.api.app import create_app
+from calibrant.app import create_app
 from calibrant.config import Settings
 from tests.api.payloads import post_predictions, prediction
 from tests.conftest import Database, make_client

@@ -29,8 +29,8 @@ from pydantic import (
     ValidationError,
 )
 
-from calibrant.api.app import create_app
 from calibrant.api.instant import Instant
+from calibrant.app import create_app
 from calibrant.config import Settings
 
 REF_PREFIX = "#/components/schemas/"

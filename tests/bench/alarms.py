@@ -25,7 +25,7 @@ from scipy.special import expit, logit
 from tests.bench import weekly_rule
 
 from calibrant.alarms.charts import design_for
-from calibrant.alarms.rules import ChartParams
+from calibrant.alarms.kinds.calibration_chart import ChartParams
 from calibrant.stats.cusum import advance, new_chart, reset
 
 MIXES = {"beta(2,8)": (2, 8), "beta(1,20)": (1, 20), "beta(5,5)": (5, 5)}

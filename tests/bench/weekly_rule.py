@@ -1,7 +1,7 @@
 """The weekly degradation rule on simulated weeks: its false alarms in control and its detection delay.
 
 Each simulated week of ``volume`` cases is judged by the service's own decision,
-``alarms.rules.excess_log_loss`` with the rule's default parameters
+``alarms.kinds.excess_log_loss.excess_log_loss`` with the rule's default parameters
 (``ExcessLogLossParams``: level 0.01, minimum relative effect 0.05, 200 labeled,
 10 per class), on the week's exact sums (docs/methods.md §2): n, events, Σℓ, ΣH(p) and
 Σ p(1 − p) logit(p)², with ℓ the log-loss of a case and H(p) its entropy. No
@@ -21,7 +21,8 @@ from collections.abc import Callable
 import numpy as np
 from scipy.special import logit
 
-from calibrant.alarms.rules import ExcessLogLossParams, LogLossSums, excess_log_loss
+from calibrant.alarms.kinds.excess_log_loss import ExcessLogLossParams, excess_log_loss
+from calibrant.stats.window_tests import LogLossSums
 
 Sampler = Callable[[np.random.Generator, int], np.ndarray]
 Shift = Callable[[np.ndarray], np.ndarray]

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from fastapi.testclient import TestClient
 
-from calibrant.api.app import create_app
+from calibrant.app import create_app
 from calibrant.client import CalibrantRequestError, Client
 from calibrant.client_buffer import BatchingSender
 from calibrant.config import Settings

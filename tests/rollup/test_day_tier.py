@@ -41,6 +41,7 @@ def test_refresh_builds_one_day_summary_per_day_and_the_answer_is_unchanged(db: 
     assert _day_rows(db) == days_with_rows
     assert report["jobs"]["refresh"]["days"] >= len(days_with_rows)
     assert db.scalar("SELECT COUNT(*) FROM dirty_days") == 0
+    assert len(body["periods"]) == 4  # the four weeks of WEEKS
     for i, period in enumerate(body["periods"]):
         start = MONDAY + timedelta(weeks=i)
         # scikit-learn / statsmodels on the week's rows (tests.rollup.reference)
@@ -128,6 +129,7 @@ def test_maturity_boundary_inside_a_day_splits_that_day_by_hour(db: Database) ->
                        end=(MONDAY + timedelta(days=7)).isoformat(), granularity="day")
     f = traffic.frame
     bucket_end = f.scored_at.dt.floor("h") + pd.Timedelta(hours=1)
+    assert len(body["periods"]) == 7  # one per day of the seven asked for
     for i, period in enumerate(body["periods"]):
         lo = pd.Timestamp(MONDAY + timedelta(days=i))
         rows = f[(f.scored_at >= lo) & (f.scored_at < lo + pd.Timedelta(days=1))]

@@ -36,4 +36,5 @@ def test_wilson_edges() -> None:
     assert hi == pytest.approx(proportion_confint(0, 10, method="wilson")[1], rel=1e-12)
     d = reliability_diagram([], [])
     assert d.status is Status.NO_VALUE
+    assert len(d.bins) == 10  # the default n_bins, each listed though empty
     assert all(b.count == 0 and b.observed_rate is None for b in d.bins)

@@ -16,19 +16,21 @@ from datetime import datetime
 from typing import Any
 
 import numpy as np
-from sqlalchemy.orm import Session
 
-from calibrant.alarms import charts, windows
-from calibrant.alarms.rules import WINDOW_KINDS, ChartParams, Kind
-from calibrant.alarms.service import ensure_defaults, version_scope
+from calibrant.alarms import charts, kinds, windows
+from calibrant.alarms.kinds import Kind
+from calibrant.alarms.kinds.calibration_chart import ChartParams
+from calibrant.alarms.records import segment_out, version_scope
+from calibrant.alarms.service import ensure_defaults
 from calibrant.errors import NotFound, invalid
-from calibrant.ingest.timestamps import required_instant
 from calibrant.models.service import require
 from calibrant.rollup.compute import SegmentBook
 from calibrant.store import alarm_repo, rollup_repo
 from calibrant.store.alarm_tables import AlarmRule, ChartStream
 from calibrant.store.mature_cases import mature_case_windows
 from calibrant.store.tables import Model
+from calibrant.store.unit import Session
+from calibrant.vocabulary.instants import required_instant
 
 MAX_CROSSINGS = 1000
 
@@ -43,23 +45,20 @@ def backtest(session: Session, model_name: str, rule_name: str, *, start: str | 
     lo, hi = required_instant("start", start), required_instant("end", end)
     if hi <= lo:
         raise invalid("end", "must be after start")
-    kind = Kind(rule.kind)
-    if kind is Kind.CHART:
+    evaluation = kinds.spec(rule.kind).evaluation
+    if evaluation == "chart":
         crossings = replay_chart(session, model, rule, lo, min(hi, now), now)
-    elif kind in WINDOW_KINDS:
+    elif evaluation == "window":
         report = windows.evaluate_rule(session, model, rule, now, start=lo, end=hi, dry_run=True)
         crossings = [{"crossed_at": d["period_end"], **version_scope(d["version"]),
-                    "segment": _segment(d["segment"]), "summary": d["summary"], "evidence": d["evidence"]}
-                   for d in report.decisions]
+                      "segment": segment_out(*d["segment"]), "summary": d["summary"],
+                      "evidence": d["evidence"]}
+                     for d in report.decisions]
     else:
         raise invalid("rule", "starvation depends on when data arrived, which a replay of stored "
                               "history cannot reproduce; backtests cover charts and window rules")
-    return {"model": model.name, "rule": rule.name, "kind": kind.value, "start": lo, "end": hi,
+    return {"model": model.name, "rule": rule.name, "kind": Kind(rule.kind).value, "start": lo, "end": hi,
             "crossing_count": len(crossings), "crossings": crossings[:MAX_CROSSINGS], "sent": 0}
-
-
-def _segment(seg: tuple[str, str]) -> dict[str, str] | None:
-    return None if seg[0] == "" else {"key": seg[0], "value": seg[1]}
 
 
 def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetime, end: datetime,
@@ -74,15 +73,13 @@ def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetim
             for i, tags in enumerate(cases.tags):
                 if cases.label[i] < 0 or not start <= cases.matured_at[i] < end:
                     continue
-                for seg in charts._segments(tags, book):
+                for seg in charts.case_segments(tags, book):
                     ps, ys, ts, ids = per_stream.setdefault((version, *seg), ([], [], [], []))
                     ps.append(float(cases.probability[i]))
                     ys.append(float(cases.label[i]))
                     ts.append(cases.matured_at[i].timestamp())
                     ids.append(cases.case_id[i])
-    n_charts = max(charts.count_streams(session, [(r, params) for r in alarm_repo.rules_of(session, model.id)
-                                                  if r.enabled and r.kind == Kind.CHART]),
-                   len(per_stream) * 2, 1)
+    n_charts = max(charts.count_streams(session, charts.chart_rules(session, model)), len(per_stream) * 2, 1)
     crossings: list[dict[str, Any]] = []
     for (version, key, value), (ps, ys, ts, ids) in per_stream.items():
         stream = ChartStream(rule_id=rule.id, version=version, segment_key=key, segment_value=value,
@@ -96,7 +93,7 @@ def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetim
             if crossing is None:
                 break
             crossings.append({"crossed_at": crossing.crossed_at, **version_scope(version),
-                              "segment": _segment((key, value)),
+                              "segment": segment_out(key, value),
                               "summary": f"chart crossed h = {crossing.evidence['control_limit']:.3f}",
                               "evidence": crossing.evidence})
             used = ids.index(crossing.case_id, pos) + 1

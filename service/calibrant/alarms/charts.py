@@ -15,6 +15,10 @@ then raise about ``budget`` false alarms a year. The chart starts with the
 cases after the design. The design is redone, keeping S, when the target
 ARL0 (volume, K) moves by more than ``redesign_rate_ratio`` or the mean risk by
 more than ``redesign_mean_change`` (relative), and at every reset.
+
+A crossing opens an alarm for its stream (``records.open_alarm``) unless one is
+open; the chart keeps running until a person resolves it, which restarts the
+chart at S = 0 (``restart_alarm_stream``).
 """
 
 from __future__ import annotations
@@ -25,16 +29,19 @@ from typing import Any
 
 import numpy as np
 
-from calibrant.alarms.rules import ChartParams
+from calibrant.alarms import records
+from calibrant.alarms.kinds import calibration_chart, evaluated_as
+from calibrant.alarms.kinds.calibration_chart import ChartParams
 from calibrant.clock import rfc3339
 from calibrant.rollup.compute import SegmentBook
-from calibrant.stats.cusum import CusumState, advance, new_chart
+from calibrant.stats.cusum import CusumState, new_chart
 from calibrant.stats.cusum_design import arl0_for_false_alarm_budget, design_cusum
 from calibrant.store import alarm_repo, rollup_repo
-from calibrant.store.alarm_tables import AlarmRule, ChartStream
+from calibrant.store.alarm_tables import Alarm, AlarmRule, ChartStream
 from calibrant.store.mature_cases import MatureCases, mature_case_windows, outcomes_received_since
-from calibrant.store.rollup_tables import ALL_SEGMENT
 from calibrant.store.tables import Model
+from calibrant.store.unit import Session
+from calibrant.vocabulary.segments import ALL_SEGMENT
 
 DESIGN_STATES = 200  # Markov states; h moves < 0.002 from 400 states (checked on Beta(2,8) risks)
 DESIGN_POINTS = 128  # risk compression bins for the design
@@ -60,6 +67,7 @@ class ChartReport:
     cases: int = 0
     designs: int = 0
     skipped_late: int = 0
+    opened: int = 0
     crossings: list[Crossing] = field(default_factory=list)
 
 
@@ -150,7 +158,8 @@ def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.nda
             stream.design = redesign
             state = replace(state, h=float(redesign["h"]), s=min(state.s, float(redesign["h"])))
     cp, cy, ct = p[start:], y[start:], times[start:]
-    step = advance(state, cp, cy, return_path=True)
+    step = calibration_chart.decide(state, cp, cy)
+    assert step.path is not None  # decide keeps the path: the evidence shows it
     path = list(stream.path or [])
     crossing = None
     if step.signal_index is not None:
@@ -199,7 +208,8 @@ def restart(stream: ChartStream, params: ChartParams, n_charts: int, now: dateti
 
 
 # ----------------------------------------------------------------------------- a model
-def _segments(tags: dict[str, str], book: SegmentBook) -> list[tuple[str, str]]:
+def case_segments(tags: dict[str, str], book: SegmentBook) -> list[tuple[str, str]]:
+    """The streams a case belongs to: "all", and each declared segment key it carries a value for."""
     out = [(ALL_SEGMENT, ALL_SEGMENT)]
     for key in book.keys:
         value = tags.get(key, "")
@@ -208,18 +218,46 @@ def _segments(tags: dict[str, str], book: SegmentBook) -> list[tuple[str, str]]:
     return out
 
 
-def count_streams(session: Any, rules: list[tuple[AlarmRule, ChartParams]]) -> int:
+def chart_rules(session: Session, model: Model) -> list[tuple[AlarmRule, ChartParams]]:
+    """The model's enabled chart rules with their parameters."""
+    return [(r, ChartParams.model_validate(r.params)) for r in alarm_repo.rules_of(session, model.id)
+            if r.enabled and evaluated_as(r.kind, "chart")]
+
+
+def count_streams(session: Session, rules: list[tuple[AlarmRule, ChartParams]]) -> int:
     return sum(len(alarm_repo.streams_of(session, r.id)) for r, _ in rules)
 
 
-def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], now: datetime) -> ChartReport:
-    """Advance every stream of the model's enabled chart rules up to ``now``.
+def restart_alarm_stream(session: Session, model: Model, alarm: Alarm,
+                         now: datetime) -> dict[str, Any] | None:
+    """A person resolved ``alarm``: if a chart raised it, restart that chart at S = 0 (``restart``).
+
+    Returns the restarted chart's new control limit, or None when the alarm is
+    not a chart's (or its rule or stream is gone).
+    """
+    rule = session.get(AlarmRule, alarm.rule_id)
+    if rule is None or not evaluated_as(rule.kind, "chart"):
+        return None
+    params = ChartParams.model_validate(rule.params)
+    n_charts = max(count_streams(session, chart_rules(session, model)), 1)
+    restarted = None
+    for stream in alarm_repo.streams_of(session, rule.id):
+        if (stream.version, stream.segment_key, stream.segment_value) == (
+                alarm.version, alarm.segment_key, alarm.segment_value):
+            restart(stream, params, n_charts, now)
+            restarted = {"control_limit": (stream.state or {}).get("h")}
+    return restarted
+
+
+def run(session: Session, model: Model, now: datetime) -> ChartReport:
+    """Advance every stream of the model's enabled chart rules up to ``now``; open an alarm per crossing.
 
     Cases are read one maturity window at a time (``store.mature_cases``), so a new
     rule on a long history holds one window's cases, not the history. The model's
     chart count (the budget split) is the number of streams when a stream is designed.
     """
     report = ChartReport()
+    rules = chart_rules(session, model)
     if not rules:
         return report
     conn = session.connection()
@@ -239,17 +277,29 @@ def run(session: Any, model: Model, rules: list[tuple[AlarmRule, ChartParams]], 
         for cases in mature_case_windows(conn, model, version, after=after, now=now):
             _advance_window(session, version, cases, rules, streams, book, now, report)
     session.flush()
+    for crossing in report.crossings:
+        report.opened += _open_alarm(session, model, crossing, now) is not None
     return report
 
 
-def _advance_window(session: Any, version: str, cases: MatureCases,
+def _open_alarm(session: Session, model: Model, crossing: Crossing, now: datetime) -> Alarm | None:
+    stream = crossing.stream
+    return records.open_alarm(
+        session, model, crossing.rule, version=stream.version,
+        segment=(stream.segment_key, stream.segment_value), crossed_at=crossing.crossed_at,
+        evidence=crossing.evidence, now=now,
+        summary=f"{crossing.rule.name}: chart crossed h = {crossing.evidence['control_limit']:.3f} "
+                f"at case {crossing.case_id!r} (S = {crossing.evidence['statistic']:.3f})")
+
+
+def _advance_window(session: Session, version: str, cases: MatureCases,
                     rules: list[tuple[AlarmRule, ChartParams]],
                     streams: dict[tuple[int, StreamKey], ChartStream], book: SegmentBook, now: datetime,
                     report: ChartReport) -> None:
     """Route one window's cases to their streams (creating new ones) and feed each stream."""
     routes: dict[StreamKey, list[int]] = {}
     for i, tags in enumerate(cases.tags):
-        for seg in _segments(tags, book):
+        for seg in case_segments(tags, book):
             routes.setdefault((version, *seg), []).append(i)
     work: list[tuple[AlarmRule, ChartParams, ChartStream, list[int]]] = []
     for key, idx in routes.items():
@@ -287,7 +337,7 @@ def _advance_window(session: Any, version: str, cases: MatureCases,
             report.crossings.append(crossing)
 
 
-def _count_late(session: Any, model: Model, version: str,
+def _count_late(session: Session, model: Model, version: str,
                 streams: dict[tuple[int, StreamKey], ChartStream], book: SegmentBook, now: datetime) -> None:
     """Outcomes received since a stream's last run whose case lies at or behind its watermark."""
     mine = [s for (_, k), s in streams.items() if k[0] == version and s.watermark_at is not None]
@@ -300,7 +350,7 @@ def _count_late(session: Any, model: Model, version: str,
             if item.received_at > stream.updated_at and (
                 (item.matured_at, item.case_id) <= (stream.watermark_at, stream.watermark_case)
             ) and (
-                (stream.segment_key, stream.segment_value) in _segments(item.tags, book)
+                (stream.segment_key, stream.segment_value) in case_segments(item.tags, book)
             ):
                 stream.skipped_late += 1
         stream.updated_at = now  # counted up to now: the next run looks only at later arrivals

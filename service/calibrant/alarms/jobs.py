@@ -10,16 +10,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime
-from typing import Any
 
-from sqlalchemy import Engine
-from sqlalchemy.orm import Session
-
-from calibrant.alarms import charts, service, windows
-from calibrant.alarms.rules import WINDOW_KINDS, Kind
+from calibrant.alarms import charts, feeds, kinds, service, windows
+from calibrant.clock import Clock
 from calibrant.store import alarm_repo
 from calibrant.store.engine import make_session_factory
 from calibrant.store.tables import Model
+from calibrant.store.unit import Engine, Session
 
 
 @dataclass
@@ -37,31 +34,23 @@ class EvaluationReport:
 
 def evaluate_model(session: Session, model: Model, now: datetime, report: EvaluationReport) -> None:
     """Everything the model's rules have to say at ``now`` (flushes; the caller commits)."""
-    chart_rules = service.chart_rules(session, model)
-    done = charts.run(session, model, chart_rules, now)
+    done = charts.run(session, model, now)
     report.cases += done.cases
     report.designs += done.designs
-    for crossing in done.crossings:
-        stream = crossing.stream
-        segment = (stream.segment_key, stream.segment_value)
-        opened = service.open_alarm(
-            session, model, crossing.rule, version=stream.version, segment=segment,
-            crossed_at=crossing.crossed_at, evidence=crossing.evidence, now=now,
-            summary=f"{crossing.rule.name}: chart crossed h = {crossing.evidence['control_limit']:.3f} "
-                    f"at case {crossing.case_id!r} (S = {crossing.evidence['statistic']:.3f})")
-        report.opened += opened is not None
+    report.opened += done.opened
     for rule in alarm_repo.rules_of(session, model.id):
         if not rule.enabled:
             continue
-        if Kind(rule.kind) in WINDOW_KINDS:
+        evaluation = kinds.spec(rule.kind).evaluation
+        if evaluation == "window":
             w = windows.evaluate_rule(session, model, rule, now)
-        elif rule.kind == Kind.STARVATION:
-            w = windows.evaluate_starvation(session, model, rule, now)
-        else:
-            continue
-        report.periods += w.periods
-        report.opened += w.opened
-        report.resolved += w.resolved
+            report.periods += w.periods
+            report.opened += w.opened
+            report.resolved += w.resolved
+        elif evaluation == "feed":
+            f = feeds.evaluate_rule(session, model, rule, now)
+            report.opened += f.opened
+            report.resolved += f.resolved
 
 
 def evaluate_all(engine: Engine, now: datetime) -> EvaluationReport:
@@ -86,8 +75,8 @@ def evaluate_all(engine: Engine, now: datetime) -> EvaluationReport:
     return report
 
 
-def run(ctx: Any) -> dict[str, Any]:
-    """``jobs.JOBS`` entry. The model count is left out: a round that only looked is idle."""
-    done = evaluate_all(ctx.engine, ctx.clock.now()).as_dict()
+def run(engine: Engine, clock: Clock) -> dict[str, int]:
+    """The ``alarms`` job of ``calibrant.jobs``. No model count: a round that only looked is idle."""
+    done = evaluate_all(engine, clock.now()).as_dict()
     del done["models"]
     return done

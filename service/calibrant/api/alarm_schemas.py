@@ -6,7 +6,7 @@ from typing import Any, ClassVar, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from calibrant.alarms.rules import Kind
+from calibrant.alarms.kinds import Kind
 from calibrant.api.instant import Instant
 from calibrant.api.sparse import SparseModel
 

@@ -3,21 +3,20 @@
 Keys are demanded when ``Settings.keys_required`` (a non-loopback address,
 or auth=required). On a loopback-only server without keys configured the
 caller is the local operator, so the README walk-through works without one;
-a key that is sent is still checked.
+a key that is sent is still checked. The FastAPI dependency that applies this
+to a route is ``api.deps.requires`` (and its ``Reader``, ``Ingester``, ``Admin``).
 """
 
 from __future__ import annotations
 
-from collections.abc import Awaitable, Callable
 from dataclasses import dataclass
 
 from fastapi import Request
-from starlette.concurrency import run_in_threadpool
 
-from calibrant.api.runtime import Runtime
 from calibrant.errors import Forbidden, Unauthenticated
 from calibrant.store import keys_repo
 from calibrant.store.keys_repo import Scope
+from calibrant.store.unit import SessionFactory
 
 
 @dataclass(frozen=True, slots=True)
@@ -36,7 +35,8 @@ class Principal:
 LOCAL = Principal(actor="local", scope=Scope.ADMIN)
 
 
-def _bearer(request: Request) -> str | None:
+def bearer_token(request: Request) -> str | None:
+    """The key sent as ``Authorization: Bearer <key>``, or None when no Authorization is sent."""
     header = request.headers.get("authorization")
     if header is None:
         return None
@@ -46,27 +46,10 @@ def _bearer(request: Request) -> str | None:
     return token.strip()
 
 
-def _authenticate(runtime: Runtime, token: str) -> Principal:
-    with runtime.sessions() as session:
+def authenticate(sessions: SessionFactory, token: str) -> Principal:
+    """The holder of ``token``; blocking (a database read), so called from the thread pool."""
+    with sessions() as session:
         key = keys_repo.authenticate(session, token)
     if key is None:
         raise Unauthenticated("the API key is unknown or revoked")
     return Principal(f"key:{key.key_id}", Scope(key.scope), key.model_name)
-
-
-def requires(scope: Scope) -> Callable[[Request], Awaitable[Principal]]:
-    """A FastAPI dependency that admits callers holding ``scope`` for the path's model."""
-
-    async def dependency(request: Request) -> Principal:
-        runtime: Runtime = request.app.state.runtime
-        token = _bearer(request)
-        if token is None:
-            if runtime.settings.keys_required:
-                raise Unauthenticated("an API key is required: 'Authorization: Bearer <key>'")
-            principal = LOCAL
-        else:
-            principal = await run_in_threadpool(_authenticate, runtime, token)
-        principal.check(scope, request.path_params.get("model"))
-        return principal
-
-    return dependency

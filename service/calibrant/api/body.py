@@ -6,9 +6,14 @@ a chunked body is read only until it crosses the cap.
 
 from __future__ import annotations
 
+from typing import Any
+
+import orjson
 from fastapi import Request
 
-from calibrant.errors import PayloadTooLarge
+from calibrant.errors import FieldError, InvalidInput, PayloadTooLarge
+
+SMALL_BODY = 64 * 1024  # a rule or a resolve note; batches are capped by Settings.max_body_bytes
 
 
 async def read_capped(request: Request, limit: int) -> bytes:
@@ -23,3 +28,15 @@ async def read_capped(request: Request, limit: int) -> bytes:
             raise PayloadTooLarge(f"the body exceeds the limit of {limit} bytes")
         chunks.append(chunk)
     return b"".join(chunks)
+
+
+async def read_json_object(request: Request, limit: int = SMALL_BODY) -> dict[str, Any]:
+    """A capped body holding one JSON object; an empty body is ``{}``."""
+    body = await read_capped(request, limit)
+    try:
+        doc = orjson.loads(body or b"{}")
+    except orjson.JSONDecodeError as exc:
+        raise InvalidInput("body is not valid JSON", [FieldError(None, "body", str(exc))]) from None
+    if not isinstance(doc, dict):
+        raise InvalidInput("body must be an object", [FieldError(None, "body", "expected an object")])
+    return doc

@@ -10,7 +10,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from calibrant.errors import CalibrantError
+from calibrant.errors import CalibrantError, field_errors
 
 log = logging.getLogger("calibrant.api")
 PROBLEM_TYPE_BASE = "https://calibrant.invalid/problems/"
@@ -33,14 +33,7 @@ def install(app: FastAPI) -> None:
 
     @app.exception_handler(RequestValidationError)
     async def _validation(_request: Request, exc: RequestValidationError) -> JSONResponse:
-        errors = [
-            {
-                "index": None,
-                "field": ".".join(str(p) for p in err["loc"][1:]) or str(err["loc"][0]),
-                "message": err["msg"],
-            }
-            for err in exc.errors()
-        ]
+        errors = [e.as_dict() for e in field_errors(exc, source_first=True)]
         return problem(422, "Invalid input", "the request is invalid", "invalid-input", errors=errors)
 
     @app.exception_handler(StarletteHTTPException)

@@ -10,18 +10,16 @@ in ``ingest.schemas`` exist for the OpenAPI document only.
 from __future__ import annotations
 
 import math
-import re
 from datetime import datetime
 from typing import Any
 
 import orjson
 
 from calibrant.errors import FieldError, InvalidInput
-from calibrant.ingest.timestamps import parse_instant
 from calibrant.store.batches import OutcomeColumns, PredictionColumns
+from calibrant.vocabulary.instants import parse_instant
+from calibrant.vocabulary.segments import is_tag_key
 
-MODEL_NAME = re.compile(r"[a-z0-9][a-z0-9_-]{0,63}")
-TAG_KEY = re.compile(r"[A-Za-z0-9_.-]{1,64}")
 MAX_ID_LENGTH = 200
 MAX_VERSION_LENGTH = 64
 MAX_TAGS = 16
@@ -30,15 +28,6 @@ DEFAULT_VERSION = "default"
 
 _PREDICTION_FIELDS = frozenset({"id", "probability", "scored_at", "version", "tags"})
 _OUTCOME_FIELDS = frozenset({"id", "label", "observed_at"})
-
-
-def check_model_name(name: str) -> str:
-    if not MODEL_NAME.fullmatch(name):
-        raise InvalidInput(
-            f"model name {name!r} is not allowed",
-            [FieldError(None, "model", "must match ^[a-z0-9][a-z0-9_-]{0,63}$")],
-        )
-    return name
 
 
 def _load_items(body: bytes, member: str, max_items: int) -> list[Any]:
@@ -108,7 +97,7 @@ def _check_tags(value: object, index: int, errors: list[FieldError]) -> str | No
     if len(value) > MAX_TAGS:
         errors.append(FieldError(index, "tags", f"at most {MAX_TAGS} keys"))
     for key, tag_value in value.items():
-        if not TAG_KEY.fullmatch(key):
+        if not is_tag_key(key):
             errors.append(
                 FieldError(index, f"tags.{key}", "key must be 1-64 of A-Z a-z 0-9 _ . -")
             )

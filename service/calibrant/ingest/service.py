@@ -8,14 +8,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from sqlalchemy.orm import Session
-
 from calibrant.clock import Clock
 from calibrant.errors import Conflict
-from calibrant.ingest.batch import check_model_name, parse_outcomes, parse_predictions
+from calibrant.ingest.batch import parse_outcomes, parse_predictions
 from calibrant.store import audit, models_repo
 from calibrant.store.ingest_writes import OutcomeWrite, insert_predictions, upsert_outcomes
 from calibrant.store.tables import Model
+from calibrant.store.unit import Session
+from calibrant.vocabulary.names import check_name
 
 
 @dataclass(frozen=True, slots=True)
@@ -25,7 +25,7 @@ class PredictionResult:
 
 
 def _model_for_ingest(session: Session, name: str, clock: Clock, actor: str) -> Model:
-    model, created = models_repo.get_or_create(session, check_model_name(name), clock.now())
+    model, created = models_repo.get_or_create(session, check_name(name), clock.now())
     if created:
         audit.record(
             session,
@@ -47,7 +47,7 @@ def ingest_predictions(
     Raises ``InvalidInput`` (422) for any bad item and ``Conflict`` (409) when a
     (version, id) already exists with different content.
     """
-    check_model_name(model_name)
+    check_name(model_name)
     batch = parse_predictions(body, max_items)
     model = _model_for_ingest(session, model_name, clock, actor)
     if not len(batch):
@@ -66,7 +66,7 @@ def ingest_outcomes(
     session: Session, model_name: str, body: bytes, *, max_items: int, clock: Clock, actor: str
 ) -> OutcomeWrite:
     """Store a batch of outcomes: new labels, duplicates and corrections (history kept)."""
-    check_model_name(model_name)
+    check_name(model_name)
     batch = parse_outcomes(body, max_items)
     model = _model_for_ingest(session, model_name, clock, actor)
     if not len(batch):

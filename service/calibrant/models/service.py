@@ -5,11 +5,9 @@ from __future__ import annotations
 from typing import Any
 
 from pydantic import ValidationError
-from sqlalchemy.orm import Session
 
 from calibrant.clock import Clock
-from calibrant.errors import FieldError, InvalidInput, NotFound
-from calibrant.ingest.batch import check_model_name
+from calibrant.errors import FieldError, InvalidInput, NotFound, field_errors
 from calibrant.models.settings import (
     SUMMARY_SETTINGS,
     ModelSettingsPatch,
@@ -18,6 +16,8 @@ from calibrant.models.settings import (
 )
 from calibrant.store import audit, cases, dirty, models_repo
 from calibrant.store.tables import Model
+from calibrant.store.unit import Session
+from calibrant.vocabulary.names import check_name
 
 SETTING_NAMES = (
     "description",
@@ -34,7 +34,7 @@ def settings_of(model: Model) -> dict[str, Any]:
 
 
 def require(session: Session, name: str) -> Model:
-    check_model_name(name)
+    check_name(name)
     model = models_repo.get(session, name)
     if model is None:
         raise NotFound(f"no model named {name!r}; it is created by its first ingest or by PUT")
@@ -45,11 +45,7 @@ def parse_patch(body: bytes) -> tuple[ModelSettingsPatch, set[str]]:
     try:
         patch = ModelSettingsPatch.model_validate_json(body or b"{}")
     except ValidationError as exc:
-        errors = [
-            FieldError(None, ".".join(str(p) for p in e["loc"]) or "body", e["msg"])
-            for e in exc.errors(include_url=False)
-        ]
-        raise InvalidInput("the model settings are invalid; nothing was changed", errors) from None
+        raise InvalidInput("the model settings are invalid; nothing was changed", field_errors(exc)) from None
     return patch, set(patch.model_fields_set)
 
 
@@ -57,7 +53,7 @@ def put_settings(
     session: Session, name: str, body: bytes, *, clock: Clock, actor: str
 ) -> tuple[Model, bool]:
     """Create or merge-update a model's settings. Returns (model, created)."""
-    check_model_name(name)
+    check_name(name)
     patch, fields_set = parse_patch(body)
     model, created = models_repo.get_or_create(session, name, clock.now())
     before = settings_of(model)

@@ -14,11 +14,11 @@ from pydantic import (
     model_validator,
 )
 
-from calibrant.ingest.batch import TAG_KEY
+from calibrant.vocabulary.segments import TAG_KEY_PATTERN
 
 MAX_SEGMENT_KEYS = 4
-# Anchored: a pydantic pattern matches anywhere in the string unless told otherwise.
-SegmentKey = Annotated[str, StringConstraints(pattern=f"^{TAG_KEY.pattern}$")]
+# Anchored (TAG_KEY_PATTERN has ^ and $): a pydantic pattern matches anywhere in the string otherwise.
+SegmentKey = Annotated[str, StringConstraints(pattern=TAG_KEY_PATTERN)]
 
 
 class TrafficReference(BaseModel):

@@ -14,14 +14,13 @@ import uuid
 from dataclasses import dataclass, field
 from datetime import timedelta
 
-from sqlalchemy.orm import Session, sessionmaker
-
 from calibrant.clock import Clock
 from calibrant.config import Settings
 from calibrant.notify import outbox, signing
 from calibrant.notify.senders import OutgoingRequest, Sender, SendResult
 from calibrant.store import outbox_repo, webhook_targets_repo
 from calibrant.store.outbox_repo import ClaimedDelivery
+from calibrant.store.unit import SessionFactory
 from calibrant.store.webhook_tables import DELIVERED, FAILED
 
 log = logging.getLogger("calibrant.notify")
@@ -50,7 +49,7 @@ class DeliveryStats:
 
 
 def deliver_due(
-    session_factory: sessionmaker[Session],
+    session_factory: SessionFactory,
     clock: Clock,
     settings: Settings,
     sender: Sender,
@@ -95,7 +94,7 @@ def deliver_due(
 
 @dataclass
 class _Run:
-    session_factory: sessionmaker[Session]
+    session_factory: SessionFactory
     clock: Clock
     settings: Settings
     sender: Sender

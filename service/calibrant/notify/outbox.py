@@ -13,13 +13,10 @@ from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
 
-from sqlalchemy import select
-from sqlalchemy.orm import Session
-
 from calibrant.config import Settings
 from calibrant.notify import backoff, payloads, signing
-from calibrant.store import outbox_repo, webhook_targets_repo
-from calibrant.store.tables import Model
+from calibrant.store import models_repo, outbox_repo, webhook_targets_repo
+from calibrant.store.unit import Session
 from calibrant.store.webhook_tables import DELIVERED, FAILED, PENDING, WebhookDelivery, WebhookTarget
 
 
@@ -39,9 +36,7 @@ def enqueue(
     """
     if kind not in payloads.SUBSCRIBABLE_TYPES:
         raise ValueError(f"{kind!r} is not an event kind targets subscribe to: {payloads.SUBSCRIBABLE_TYPES}")
-    model_name = (
-        session.scalar(select(Model.name).where(Model.id == model_id)) if model_id is not None else None
-    )
+    model_name = models_repo.model_name(session, model_id) if model_id is not None else None
     targets = webhook_targets_repo.subscribed(session, kind, model_name)
     body = payloads.envelope(kind, at, payload).decode()
     event_id = outbox_repo.insert_event(session, kind=kind, model_id=model_id, body=body, at=at)

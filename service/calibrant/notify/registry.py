@@ -9,13 +9,12 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy.orm import Session
-
 from calibrant.errors import NotFound, invalid
 from calibrant.notify import outbox, payloads, signing
 from calibrant.notify.targets import Resolver, TargetRefused, check_target
 from calibrant.store import audit, outbox_repo, webhook_targets_repo
 from calibrant.store.outbox_repo import DeliveryRecord
+from calibrant.store.unit import Session
 from calibrant.store.webhook_tables import WebhookDelivery, WebhookTarget
 
 

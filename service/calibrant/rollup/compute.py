@@ -16,7 +16,8 @@ import orjson
 
 from calibrant.stats.summary import Summary
 from calibrant.store.rollup_repo import RawChunk
-from calibrant.store.rollup_tables import ALL_SEGMENT, MAX_SEGMENT_VALUES, OTHER_VALUE
+from calibrant.store.rollup_tables import MAX_SEGMENT_VALUES, OTHER_VALUE
+from calibrant.vocabulary.segments import ALL_SEGMENT
 
 SegmentId = tuple[str, str]
 

@@ -7,10 +7,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy.orm import Session
-
 from calibrant.errors import FieldError, InvalidInput, invalid
-from calibrant.ingest.timestamps import required_instant
 from calibrant.models.service import require
 from calibrant.rollup import query
 from calibrant.rollup.periods import Granularity, periods
@@ -20,20 +17,13 @@ from calibrant.stats.result import Estimate
 from calibrant.stats.summary import Summary
 from calibrant.stats.summary_binned import reliability_diagram
 from calibrant.store import rollup_repo
-from calibrant.store.rollup_tables import ALL_SEGMENT
 from calibrant.store.tables import Model
+from calibrant.store.unit import Session
+from calibrant.vocabulary.instants import required_instant
+from calibrant.vocabulary.metrics import COUNT_KEYS, INTERVAL_KEYS, METRIC_KEYS
+from calibrant.vocabulary.segments import ALL_SEGMENT, parse_tag
 
 MAX_PERIODS = 1000
-INTERVAL_KEYS = (
-    "mean_probability",
-    "observed_rate",
-    "oe_ratio",
-    "log_loss",
-    "brier",
-    "calibration_intercept",
-    "calibration_slope",
-    "auc",
-)
 _WINDOW = re.compile(r"([1-9][0-9]{0,2})d")
 
 
@@ -50,9 +40,7 @@ def _segment(model: Model, tag: list[str]) -> tuple[str, str]:
         return (ALL_SEGMENT, ALL_SEGMENT)
     if len(tag) > 1:
         raise invalid("tag", "at most one tag filter in v1")
-    key, sep, value = tag[0].partition(":")
-    if not sep or not key or not value:
-        raise invalid("tag", "must be key:value, e.g. tag=region:north")
+    key, value = parse_tag("tag", tag[0])
     if key not in (model.segment_keys or []):
         raise invalid(
             "tag",
@@ -75,10 +63,10 @@ def serialise(metrics: dict[str, Estimate]) -> dict[str, Any]:
     ``k_ci`` for interval keys, a status per key not measured."""
     out: dict[str, Any] = {}
     status: dict[str, dict[str, str]] = {}
-    for key in (*query.COUNT_KEYS, *query.METRIC_KEYS):
+    for key in (*COUNT_KEYS, *METRIC_KEYS):
         est = metrics[key]
         value = est.value
-        out[key] = count(value) if key in query.COUNT_KEYS else value
+        out[key] = count(value) if key in COUNT_KEYS else value
         if key in INTERVAL_KEYS:
             out[f"{key}_ci"] = list(est.ci) if est.ci is not None and value is not None else None
         if value is None or not est.measured:

@@ -13,8 +13,6 @@ from collections import defaultdict
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 
-from sqlalchemy import Connection
-
 from calibrant.rollup.periods import Period
 from calibrant.stats.result import Estimate, Status, missing
 from calibrant.stats.summary import Summary
@@ -24,26 +22,12 @@ from calibrant.store import dirty, rollup_repo
 from calibrant.store.dirty import day_of
 from calibrant.store.rollup_repo import DAY, HOUR
 from calibrant.store.tables import Model
+from calibrant.store.unit import Connection
+from calibrant.vocabulary import metrics
 
-COUNT_KEYS = ("n_predictions", "n_labeled", "n_immature")
-METRIC_KEYS = (
-    "label_coverage",
-    "mean_probability",
-    "observed_rate",
-    "oe_ratio",
-    "log_loss",
-    "log_loss_expected",
-    "brier",
-    "brier_reliability",
-    "brier_resolution",
-    "brier_uncertainty",
-    "calibration_intercept",
-    "calibration_slope",
-    "spiegelhalter_z",
-    "ece",
-    "auc",
-    "psi",
-)
+# The metric registry's key lists, kept importable from here while api and alarms import them from here.
+COUNT_KEYS = metrics.COUNT_KEYS
+METRIC_KEYS = metrics.METRIC_KEYS
 
 
 NO_REFERENCE = (
@@ -177,8 +161,8 @@ def period_metrics(
     else:
         out["psi"] = psi(everything, reference)
     if model.outcome_horizon_days is not None and mature.is_empty() and not everything.is_empty():
-        for key in METRIC_KEYS:
-            if key not in {"label_coverage", "mean_probability", "psi"}:
+        for key in metrics.METRIC_KEYS:
+            if key not in metrics.LABEL_FREE_KEYS:
                 out[key] = missing(
                     Status.TOO_FEW_CASES,
                     "no mature predictions yet: outcomes are still inside horizon + lag",

@@ -12,8 +12,6 @@ from typing import Any
 
 import numpy as np
 import orjson
-from sqlalchemy import Connection
-from sqlalchemy.orm import Session
 
 from calibrant.clock import Clock, rfc3339
 from calibrant.errors import FieldError, InvalidInput
@@ -21,7 +19,8 @@ from calibrant.models.service import require
 from calibrant.rollup.query import load_days
 from calibrant.stats.summary import Summary
 from calibrant.store import audit, rollup_repo
-from calibrant.store.rollup_tables import ALL_SEGMENT
+from calibrant.store.unit import Connection, Session
+from calibrant.vocabulary.segments import ALL_SEGMENT
 
 MAX_REFERENCE_ROWS = 1_000_000
 

@@ -20,14 +20,12 @@ from collections import defaultdict
 from dataclasses import dataclass, field
 from datetime import timedelta
 
-from sqlalchemy import Engine, select
-
 from calibrant.clock import Clock
 from calibrant.rollup.compute import SegmentBook, summarise_bucket
 from calibrant.stats.summary import Summary
 from calibrant.store import dirty, rollup_repo
 from calibrant.store.dirty import BucketKey, DayKey, day_of
-from calibrant.store.tables import Model
+from calibrant.store.unit import Engine
 
 JOB_NAME = "refresh"
 
@@ -147,8 +145,8 @@ def _read_buckets(engine: Engine, keys: list[BucketKey], chunk_rows: int) -> lis
         for key in keys:
             book = books.get(key.model_id)
             if book is None:
-                seg_keys = conn.execute(select(Model.segment_keys).where(Model.id == key.model_id)).scalar()
-                book = SegmentBook(list(seg_keys or []), rollup_repo.segment_values(conn, key.model_id))
+                book = SegmentBook(rollup_repo.segment_keys(conn, key.model_id),
+                                   rollup_repo.segment_values(conn, key.model_id))
                 books[key.model_id] = book
             summaries, n_rows = summarise_bucket(rollup_repo.bucket_rows(conn, key, chunk_rows), book)
             out.append(_Computed(book, summaries, n_rows))

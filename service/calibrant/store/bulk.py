@@ -22,7 +22,7 @@ from datetime import datetime
 from typing import Any
 
 import psycopg
-from sqlalchemy import Connection, text
+from sqlalchemy import Connection
 
 # column name -> (PostgreSQL type, SQLite type)
 StagingColumns = Sequence[tuple[str, str, str]]
@@ -142,7 +142,3 @@ def _with_sqlite_times(row: tuple, positions: list[int]) -> tuple:
     for i in positions:
         out[i] = sqlite_instant(out[i])
     return tuple(out)
-
-
-def scalar_rows(conn: Connection, sql: str, **params: Any) -> list[tuple]:
-    return [tuple(r) for r in conn.execute(text(sql), params)]

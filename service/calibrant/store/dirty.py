@@ -15,8 +15,9 @@ from datetime import datetime, timedelta
 
 from sqlalchemy import Connection, Table, and_, delete, func, or_, select, update
 
-from calibrant.store.rollup_tables import ALL_SEGMENT, BucketSummary, DirtyBucket, DirtyDay
+from calibrant.store.rollup_tables import BucketSummary, DirtyBucket, DirtyDay
 from calibrant.store.upsert import insert_for
+from calibrant.vocabulary.segments import ALL_SEGMENT
 
 
 def hour_of(instant: datetime) -> datetime:

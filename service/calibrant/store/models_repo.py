@@ -48,6 +48,11 @@ def get_or_create(session: Session, name: str, now: datetime) -> tuple[Model, bo
     return model, created
 
 
+def model_name(session: Session, model_id: int) -> str | None:
+    """The name of the model with this id; None if there is none."""
+    return session.scalar(select(Model.name).where(Model.id == model_id))
+
+
 def list_all(session: Session) -> list[Model]:
     return list(session.scalars(select(Model).order_by(Model.name)))
 
@@ -78,4 +83,4 @@ def counts(session: Session, model_id: int) -> ModelCounts:
     return ModelCounts(int(n_pred or 0), int(n_out or 0), int(n_lab or 0))
 
 
-__all__ = ["ModelCounts", "counts", "get", "get_or_create", "list_all"]
+__all__ = ["ModelCounts", "counts", "get", "get_or_create", "list_all", "model_name"]

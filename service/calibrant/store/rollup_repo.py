@@ -18,7 +18,7 @@ from calibrant.store.rollup_tables import (
     ReferenceSample,
     SegmentValue,
 )
-from calibrant.store.tables import Outcome, Prediction
+from calibrant.store.tables import Model, Outcome, Prediction
 from calibrant.store.upsert import insert_for
 
 HOUR = timedelta(hours=1)
@@ -89,6 +89,12 @@ def replace_summaries(
                 for (seg_key, seg_value), (n, payload) in sorted(summaries.items())
             ],
         )
+
+
+def segment_keys(conn: Connection, model_id: int) -> list[str]:
+    """The tag keys the model keeps segment summaries for, as its settings declare them."""
+    keys = conn.execute(select(Model.segment_keys).where(Model.id == model_id)).scalar()
+    return list(keys or [])
 
 
 def segment_values(conn: Connection, model_id: int) -> dict[str, list[str]]:

@@ -2,29 +2,26 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter, Request
+from fastapi import APIRouter
 from fastapi.responses import JSONResponse
-from sqlalchemy import text
-from sqlalchemy.exc import SQLAlchemyError
 from starlette.concurrency import run_in_threadpool
 
+from calibrant.api.deps import RuntimeDep
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import Health, HealthDetail
 from calibrant.api.webhook_schemas import OutboxHealth
 from calibrant.store import outbox_repo, webhook_targets_repo
+from calibrant.store.unit import DatabaseError, ping
 
 router = APIRouter(tags=["health"])
 
 
 @router.get("/healthz", response_model=Health, summary="Is the service able to store data?")
-async def healthz(request: Request) -> JSONResponse:
-    runtime: Runtime = request.app.state.runtime
-
+async def healthz(runtime: RuntimeDep) -> JSONResponse:
     def probe() -> str | None:
         try:
-            with runtime.engine.connect() as conn:
-                conn.execute(text("SELECT 1"))
-        except SQLAlchemyError as exc:
+            ping(runtime.engine)
+        except DatabaseError as exc:
             return type(exc).__name__
         return None
 

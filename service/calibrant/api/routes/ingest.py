@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from typing import Annotated, TypeVar
+from typing import TypeVar
 
-from fastapi import APIRouter, Depends, Request
+from fastapi import APIRouter, Request
 
-from calibrant.api.auth import Principal, requires
+from calibrant.api.auth import Principal
 from calibrant.api.body import read_capped
+from calibrant.api.deps import Ingester, RuntimeDep
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import (
     PROBLEM_RESPONSES,
@@ -19,11 +20,9 @@ from calibrant.api.schemas import (
     request_body,
 )
 from calibrant.ingest import service
-from calibrant.store.keys_repo import Scope
 
 router = APIRouter(prefix="/v1/models/{model}", tags=["ingest"])
 T = TypeVar("T")
-IngestCaller = Annotated[Principal, Depends(requires(Scope.INGEST))]
 
 
 @router.post(
@@ -33,8 +32,10 @@ IngestCaller = Annotated[Principal, Depends(requires(Scope.INGEST))]
     responses={**PROBLEM_RESPONSES, 409: {"description": "Same (version, id), different content."}},
     summary="Store scored cases (all or nothing; re-posts are harmless)",
 )
-async def post_predictions(model: str, request: Request, caller: IngestCaller) -> PredictionsAccepted:
-    result = await _ingest(request, caller, model, service.ingest_predictions)
+async def post_predictions(
+    model: str, request: Request, runtime: RuntimeDep, caller: Ingester
+) -> PredictionsAccepted:
+    result = await _ingest(request, runtime, caller, model, service.ingest_predictions)
     return PredictionsAccepted(accepted=result.accepted, duplicates=result.duplicates)
 
 
@@ -45,16 +46,19 @@ async def post_predictions(model: str, request: Request, caller: IngestCaller) -
     responses=PROBLEM_RESPONSES,
     summary="Store true outcomes of cases (new, duplicate or correction)",
 )
-async def post_outcomes(model: str, request: Request, caller: IngestCaller) -> OutcomesAccepted:
-    result = await _ingest(request, caller, model, service.ingest_outcomes)
+async def post_outcomes(
+    model: str, request: Request, runtime: RuntimeDep, caller: Ingester
+) -> OutcomesAccepted:
+    result = await _ingest(request, runtime, caller, model, service.ingest_outcomes)
     return OutcomesAccepted(
         accepted=result.accepted, duplicates=result.duplicates, corrected=result.corrected
     )
 
 
-async def _ingest(request: Request, caller: Principal, model: str, use_case: Callable[..., T]) -> T:
+async def _ingest(
+    request: Request, runtime: Runtime, caller: Principal, model: str, use_case: Callable[..., T]
+) -> T:
     """Read the capped body, run one ingest use case in a committed unit of work."""
-    runtime: Runtime = request.app.state.runtime
     body = await read_capped(request, runtime.settings.max_body_bytes)
     return await runtime.run(
         lambda session: use_case(

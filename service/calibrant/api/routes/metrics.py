@@ -2,21 +2,17 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Any
 
-from fastapi import APIRouter, Depends, Query, Request
+from fastapi import APIRouter, Query, Request
 
-from calibrant.api.auth import Principal, requires
 from calibrant.api.body import read_capped
+from calibrant.api.deps import Admin, Reader, RuntimeDep
 from calibrant.api.metric_schemas import MetricsOut, ReferenceUploadOut, ReliabilityOut
-from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import PROBLEM_RESPONSES
 from calibrant.rollup import metrics_service, references
-from calibrant.store.keys_repo import Scope
 
 router = APIRouter(prefix="/v1/models/{model}", tags=["metrics"])
-Reader = Annotated[Principal, Depends(requires(Scope.READ))]
-Admin = Annotated[Principal, Depends(requires(Scope.ADMIN))]
 
 START = Query(None, description="Inclusive, RFC 3339 with offset.")
 END = Query(None, description="Exclusive, RFC 3339 with offset.")
@@ -32,7 +28,7 @@ TAG = Query([], description="One filter key:value on a declared segment key.")
 )
 async def get_metrics(
     model: str,
-    request: Request,
+    runtime: RuntimeDep,
     _caller: Reader,
     start: str | None = START,
     end: str | None = END,
@@ -41,7 +37,6 @@ async def get_metrics(
     version: str | None = VERSION,
     tag: list[str] = TAG,
 ) -> dict[str, Any]:
-    runtime: Runtime = request.app.state.runtime
     return await runtime.run(
         lambda session: metrics_service.metrics(
             session, model, start=start, end=end, granularity=granularity, window=window,
@@ -58,7 +53,7 @@ async def get_metrics(
 )
 async def get_reliability(
     model: str,
-    request: Request,
+    runtime: RuntimeDep,
     _caller: Reader,
     start: str | None = START,
     end: str | None = END,
@@ -67,7 +62,6 @@ async def get_reliability(
     version: str | None = VERSION,
     tag: list[str] = TAG,
 ) -> dict[str, Any]:
-    runtime: Runtime = request.app.state.runtime
     return await runtime.run(
         lambda session: metrics_service.reliability(
             session, model, start=start, end=end, bins=bins, strategy=strategy, version=version,
@@ -82,8 +76,7 @@ async def get_reliability(
     responses=PROBLEM_RESPONSES,
     summary="Upload a validation set (probabilities, optional labels) as the model's reference",
 )
-async def post_reference(model: str, request: Request, caller: Admin) -> dict[str, Any]:
-    runtime: Runtime = request.app.state.runtime
+async def post_reference(model: str, request: Request, runtime: RuntimeDep, caller: Admin) -> dict[str, Any]:
     body = await read_capped(request, runtime.settings.max_body_bytes)
     return await runtime.run(
         lambda session: references.upload(session, model, body, clock=runtime.clock, actor=caller.actor)

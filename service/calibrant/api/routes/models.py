@@ -2,14 +2,11 @@
 
 from __future__ import annotations
 
-from typing import Annotated
-
 import orjson
-from fastapi import APIRouter, Depends, Request, Response
+from fastapi import APIRouter, Request, Response
 
-from calibrant.api.auth import Principal, requires
 from calibrant.api.body import read_capped
-from calibrant.api.runtime import Runtime
+from calibrant.api.deps import Admin, Reader, RuntimeDep
 from calibrant.api.schemas import (
     PROBLEM_RESPONSES,
     CaseOut,
@@ -23,12 +20,10 @@ from calibrant.api.schemas import (
 from calibrant.models import service
 from calibrant.models.settings import ModelSettingsPatch
 from calibrant.store import models_repo
-from calibrant.store.keys_repo import Scope
-from calibrant.store.tables import Model
+from calibrant.store.tables import Model, Outcome, OutcomeRevision
+from calibrant.store.unit import Session
 
 router = APIRouter(prefix="/v1/models", tags=["models"])
-Reader = Annotated[Principal, Depends(requires(Scope.READ))]
-Admin = Annotated[Principal, Depends(requires(Scope.ADMIN))]
 
 
 def _model_out(model: Model, counts: models_repo.ModelCounts | None = None) -> ModelOut:
@@ -46,8 +41,7 @@ def _model_out(model: Model, counts: models_repo.ModelCounts | None = None) -> M
 
 
 @router.get("", response_model=ModelList, summary="All models")
-async def list_models(request: Request, _caller: Reader) -> ModelList:
-    runtime: Runtime = request.app.state.runtime
+async def list_models(runtime: RuntimeDep, _caller: Reader) -> ModelList:
     models = await runtime.run(models_repo.list_all)
     return ModelList(models=[_model_out(m) for m in models], count=len(models))
 
@@ -59,11 +53,12 @@ async def list_models(request: Request, _caller: Reader) -> ModelList:
     responses={**PROBLEM_RESPONSES, 201: {"model": ModelOut, "description": "Created with these settings."}},
     summary="Create a model or change its settings (absent fields unchanged)",
 )
-async def put_model(model: str, request: Request, response: Response, caller: Admin) -> ModelOut:
-    runtime: Runtime = request.app.state.runtime
+async def put_model(
+    model: str, request: Request, response: Response, runtime: RuntimeDep, caller: Admin
+) -> ModelOut:
     body = await read_capped(request, 1024 * 1024)
 
-    def work(session):
+    def work(session: Session) -> tuple[ModelOut, bool]:
         row, created = service.put_settings(
             session, model, body, clock=runtime.clock, actor=caller.actor
         )
@@ -76,10 +71,8 @@ async def put_model(model: str, request: Request, response: Response, caller: Ad
 
 
 @router.get("/{model}", response_model=ModelOut, responses=PROBLEM_RESPONSES, summary="One model")
-async def get_model(model: str, request: Request, _caller: Reader) -> ModelOut:
-    runtime: Runtime = request.app.state.runtime
-
-    def work(session):
+async def get_model(model: str, runtime: RuntimeDep, _caller: Reader) -> ModelOut:
+    def work(session: Session) -> ModelOut:
         row = service.require(session, model)
         return _model_out(row, models_repo.counts(session, row.id))
 
@@ -92,8 +85,7 @@ async def get_model(model: str, request: Request, _caller: Reader) -> ModelOut:
     responses=PROBLEM_RESPONSES,
     summary="A case: every version's prediction, its outcome and label history",
 )
-async def get_case(model: str, case_id: str, request: Request, _caller: Reader) -> CaseOut:
-    runtime: Runtime = request.app.state.runtime
+async def get_case(model: str, case_id: str, runtime: RuntimeDep, _caller: Reader) -> CaseOut:
     record = await runtime.run(lambda session: service.case_record(session, model, case_id))
     return CaseOut(
         model=model,
@@ -113,7 +105,7 @@ async def get_case(model: str, case_id: str, request: Request, _caller: Reader) 
     )
 
 
-def _outcome(row) -> CaseOutcome:
+def _outcome(row: Outcome | OutcomeRevision) -> CaseOutcome:
     return CaseOutcome(
         label=row.label, observed_at=row.observed_at, received_at=row.received_at, revision=row.revision
     )

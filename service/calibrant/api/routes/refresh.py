@@ -2,20 +2,17 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from collections.abc import Mapping
+from typing import Any
 
-from fastapi import APIRouter, Depends, Request
+from fastapi import APIRouter
 from starlette.concurrency import run_in_threadpool
 
-from calibrant.api.auth import Principal, requires
+from calibrant.api.deps import Admin, RuntimeDep
 from calibrant.api.job_schemas import RefreshOut
-from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import PROBLEM_RESPONSES
-from calibrant.jobs import run_all
-from calibrant.store.keys_repo import Scope
 
 router = APIRouter(tags=["jobs"])
-Admin = Annotated[Principal, Depends(requires(Scope.ADMIN))]
 
 
 @router.post(
@@ -24,6 +21,6 @@ Admin = Annotated[Principal, Depends(requires(Scope.ADMIN))]
     responses=PROBLEM_RESPONSES,
     summary="Run every job until no work is left",
 )
-async def refresh(request: Request, _caller: Admin) -> dict[str, Any]:
-    runtime: Runtime = request.app.state.runtime
-    return await run_in_threadpool(run_all, runtime.job_context())
+async def refresh(runtime: RuntimeDep, _caller: Admin) -> Mapping[str, Any]:
+    # The jobs arrive through the runtime's job port: the API never imports them.
+    return await run_in_threadpool(runtime.jobs.run_all)

@@ -4,11 +4,10 @@ from __future__ import annotations
 
 from typing import Annotated
 
-from fastapi import APIRouter, Depends, Query, Request, Response
+from fastapi import APIRouter, Query, Response
 from starlette.concurrency import run_in_threadpool
 
-from calibrant.api.auth import Principal, requires
-from calibrant.api.runtime import Runtime
+from calibrant.api.deps import Admin, RuntimeDep
 from calibrant.api.schemas import PROBLEM_RESPONSES
 from calibrant.api.webhook_schemas import (
     AttemptOut,
@@ -21,12 +20,11 @@ from calibrant.api.webhook_schemas import (
     WebhookUpdate,
 )
 from calibrant.notify import jobs, registry
-from calibrant.store.keys_repo import Scope
 from calibrant.store.outbox_repo import DeliveryRecord
+from calibrant.store.unit import Session
 from calibrant.store.webhook_tables import WebhookTarget
 
 router = APIRouter(prefix="/v1/webhooks", tags=["webhooks"])
-Admin = Annotated[Principal, Depends(requires(Scope.ADMIN))]
 
 
 def _out(target: WebhookTarget) -> dict:
@@ -76,10 +74,8 @@ def _delivery_out(record: DeliveryRecord) -> DeliveryOut:
     responses=PROBLEM_RESPONSES,
     summary="Register a receiver; the response carries its signing secret, shown only once",
 )
-async def create_webhook(body: WebhookCreate, request: Request, caller: Admin) -> WebhookCreated:
-    runtime: Runtime = request.app.state.runtime
-
-    def work(session):
+async def create_webhook(body: WebhookCreate, runtime: RuntimeDep, caller: Admin) -> WebhookCreated:
+    def work(session: Session) -> WebhookCreated:
         target, secret = registry.register(
             session,
             url=body.url,
@@ -97,10 +93,8 @@ async def create_webhook(body: WebhookCreate, request: Request, caller: Admin) -
 
 
 @router.get("", response_model=WebhookList, responses=PROBLEM_RESPONSES, summary="Every receiver")
-async def list_webhooks(request: Request, _caller: Admin) -> WebhookList:
-    runtime: Runtime = request.app.state.runtime
-
-    def work(session):
+async def list_webhooks(runtime: RuntimeDep, _caller: Admin) -> WebhookList:
+    def work(session: Session) -> WebhookList:
         targets = [WebhookOut(**_out(t)) for t in registry.list_all(session)]
         return WebhookList(webhooks=targets, count=len(targets))
 
@@ -108,8 +102,7 @@ async def list_webhooks(request: Request, _caller: Admin) -> WebhookList:
 
 
 @router.get("/{webhook_id}", response_model=WebhookOut, responses=PROBLEM_RESPONSES, summary="One receiver")
-async def get_webhook(webhook_id: int, request: Request, _caller: Admin) -> WebhookOut:
-    runtime: Runtime = request.app.state.runtime
+async def get_webhook(webhook_id: int, runtime: RuntimeDep, _caller: Admin) -> WebhookOut:
     return await runtime.run(lambda session: WebhookOut(**_out(registry.require(session, webhook_id))))
 
 
@@ -119,11 +112,10 @@ async def get_webhook(webhook_id: int, request: Request, _caller: Admin) -> Webh
     responses=PROBLEM_RESPONSES,
     summary="Change a receiver (absent fields unchanged; the secret stays)",
 )
-async def put_webhook(webhook_id: int, body: WebhookUpdate, request: Request, caller: Admin) -> WebhookOut:
-    runtime: Runtime = request.app.state.runtime
+async def put_webhook(webhook_id: int, body: WebhookUpdate, runtime: RuntimeDep, caller: Admin) -> WebhookOut:
     changes = body.model_dump(exclude_unset=True)
 
-    def work(session):
+    def work(session: Session) -> WebhookOut:
         target = registry.update(
             session,
             webhook_id,
@@ -144,8 +136,7 @@ async def put_webhook(webhook_id: int, body: WebhookUpdate, request: Request, ca
     responses=PROBLEM_RESPONSES,
     summary="Remove a receiver and its pending deliveries",
 )
-async def delete_webhook(webhook_id: int, request: Request, caller: Admin) -> Response:
-    runtime: Runtime = request.app.state.runtime
+async def delete_webhook(webhook_id: int, runtime: RuntimeDep, caller: Admin) -> Response:
     await runtime.run(
         lambda session: registry.remove(session, webhook_id, now=runtime.clock.now(), actor=caller.actor)
     )
@@ -161,11 +152,10 @@ async def delete_webhook(webhook_id: int, request: Request, caller: Admin) -> Re
 )
 async def ping_webhook(
     webhook_id: int,
-    request: Request,
+    runtime: RuntimeDep,
     _caller: Admin,
     attempt: Annotated[bool, Query(description="Attempt now; false leaves it to the delivery job.")] = True,
 ) -> DeliveryOut:
-    runtime: Runtime = request.app.state.runtime
     delivery = await runtime.run(lambda session: registry.ping(session, webhook_id, now=runtime.clock.now()))
     if attempt:
         # The same claim path as the delivery job, so a concurrent job run cannot send it twice.
@@ -178,7 +168,7 @@ async def ping_webhook(
             only_ids=[delivery.id],
         )
 
-    def read(session):
+    def read(session: Session) -> DeliveryOut:
         (record,) = registry.deliveries(session, webhook_id, limit=1, delivery_id=delivery.id)
         return _delivery_out(record)
 
@@ -193,13 +183,11 @@ async def ping_webhook(
 )
 async def list_deliveries(
     webhook_id: int,
-    request: Request,
+    runtime: RuntimeDep,
     _caller: Admin,
     limit: Annotated[int, Query(ge=1, le=500)] = 100,
 ) -> DeliveryList:
-    runtime: Runtime = request.app.state.runtime
-
-    def work(session):
+    def work(session: Session) -> DeliveryList:
         records = registry.deliveries(session, webhook_id, limit)
         return DeliveryList(deliveries=[_delivery_out(r) for r in records], count=len(records))
 

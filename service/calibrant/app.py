@@ -1,15 +1,19 @@
-"""``create_app(settings)``: the only way to build the HTTP application."""
+"""``create_app(settings)``: the composition root, the only way to build the HTTP application.
+
+The one place that wires the HTTP routers, the job runner (``jobs.run_all``) and the
+scheduler into one process; the API reaches the jobs only through ``Runtime.jobs``.
+"""
 
 from __future__ import annotations
 
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from dataclasses import dataclass
 
 from fastapi import FastAPI
-from sqlalchemy import Engine
 
 import calibrant
-from calibrant import scheduler
+from calibrant import jobs, scheduler
 from calibrant.api import problems
 from calibrant.api.routes import alarms, health, ingest, metrics, models, refresh, rules, webhooks
 from calibrant.api.runtime import Runtime
@@ -19,12 +23,23 @@ from calibrant.config import Settings
 from calibrant.notify.senders import Sender, sender_from_settings
 from calibrant.notify.targets import Resolver, system_resolver
 from calibrant.store.engine import make_engine, make_session_factory
+from calibrant.store.unit import Engine
 
 DESCRIPTION = """Calibrant joins the probabilities your deployed binary classifiers emit with the
 outcomes that arrive later, and reports how honest those probabilities still are.
 
 Monitoring signals support, and do not replace, model validation, local regulation and
 qualified review where decisions affect people."""
+
+
+@dataclass(frozen=True, slots=True)
+class InProcessJobs:
+    """The runtime's job port (``api.runtime.JobRunner``): every job, in this process."""
+
+    ctx: jobs.JobContext
+
+    def run_all(self) -> jobs.RunReport:
+        return jobs.run_all(self.ctx)
 
 
 def create_app(
@@ -38,26 +53,31 @@ def create_app(
 ) -> FastAPI:
     owns_engine = engine is None
     engine = engine or make_engine(settings)
+    clock = clock or SystemClock()
     resolver = resolver or system_resolver
+    webhook_sender = webhook_sender or sender_from_settings(
+        settings.webhook_allow_private, settings.webhook_sender, resolver
+    )
+    job_context = jobs.JobContext(engine, clock, settings, webhook_sender)
     runtime = Runtime(
         settings=settings,
         engine=engine,
         sessions=make_session_factory(engine),
-        clock=clock or SystemClock(),
-        webhook_sender=webhook_sender
-        or sender_from_settings(settings.webhook_allow_private, settings.webhook_sender, resolver),
+        clock=clock,
+        jobs=InProcessJobs(job_context),
+        webhook_sender=webhook_sender,
         resolver=resolver,
     )
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
         # `calibrant serve` runs the jobs in-process unless told not to (several replicas).
-        jobs = scheduler.build(runtime.job_context()) if run_scheduler else None
-        if jobs is not None:
-            jobs.start()
+        jobs_scheduler = scheduler.build(job_context) if run_scheduler else None
+        if jobs_scheduler is not None:
+            jobs_scheduler.start()
         yield
-        if jobs is not None:
-            jobs.shutdown(wait=False)
+        if jobs_scheduler is not None:
+            jobs_scheduler.shutdown(wait=False)
         if owns_engine:
             engine.dispose()
 
@@ -67,7 +87,7 @@ def create_app(
         description=DESCRIPTION,
         lifespan=lifespan,
     )
-    app.state.runtime = runtime
+    app.state.runtime = runtime  # read back only by api.deps.get_runtime
     problems.install(app)
     app.include_router(health.router)
     app.include_router(ingest.router)

@@ -7,7 +7,7 @@ from datetime import UTC, datetime
 import pytest
 from fastapi.testclient import TestClient
 
-from calibrant.api.app import create_app
+from calibrant.app import create_app
 from calibrant.clock import FixedClock
 from calibrant.notify.senders import HttpSender
 from calibrant.store import keys_repo

@@ -33,7 +33,9 @@ def test_uniform_bins_equal_numpy_and_wilson(db: Database, n_bins: int) -> None:
     rows = traffic.between(START, END).dropna(subset=["label"])  # plain pandas; no horizon: all mature
     p, y = rows.probability.to_numpy(), rows.label.to_numpy()
     k = np.searchsorted(np.arange(1, n_bins) / n_bins, p, side="right")  # numpy: [k/B, (k+1)/B)
+    assert len(rows) > 0  # bins are checked against rows, not empty against empty
     assert body["n"] == len(rows)
+    assert len(body["bins"]) == n_bins  # every bin is listed, empty ones included
     seen = 0
     for b in body["bins"]:
         j = round(b["lower"] * n_bins)

@@ -22,6 +22,7 @@ from tests.rollup.synthetic import MONDAY, make_traffic, post_all, refresh
 
 MODEL = "drift"
 WEEKS = {"start": "2026-03-02T00:00:00Z", "end": "2026-03-16T00:00:00Z", "granularity": "week"}
+WEEK_STARTS = ["2026-03-02T00:00:00Z", "2026-03-09T00:00:00Z"]  # the two ISO weeks of WEEKS
 
 
 def snapped_decile_edges(reference: np.ndarray, n_bins: int = 10) -> list[np.ndarray]:
@@ -63,7 +64,9 @@ def posted(db: Database):
 def weeks(client) -> list[dict]:
     r = client.get(f"/v1/models/{MODEL}/metrics", params=WEEKS)
     assert r.status_code == 200, r.text
-    return assert_strict_json(r.text)["periods"]
+    periods = assert_strict_json(r.text)["periods"]
+    assert [p["start"] for p in periods] == WEEK_STARTS  # so no loop over them runs zero times
+    return periods
 
 
 def test_no_reference_gives_null_psi_with_undefined_status(posted) -> None:
@@ -91,12 +94,18 @@ def test_psi_against_a_traffic_range(posted) -> None:
 def test_psi_against_a_traffic_range_of_one_version(posted) -> None:
     client, traffic = posted
     ref_end = MONDAY + timedelta(days=7)
-    client.put(f"/v1/models/{MODEL}", json={"reference": {
+    r = client.put(f"/v1/models/{MODEL}", json={"reference": {
         "kind": "traffic", "start": MONDAY.isoformat(), "end": ref_end.isoformat(), "version": "v1"}})
+    assert r.status_code == 200, r.text
     f = traffic.frame
     reference = f[(f.version == "v1") & (f.scored_at < ref_end)].probability.to_numpy()
     current = traffic.between(ref_end, ref_end + timedelta(days=7)).probability.to_numpy()
-    assert_psi(weeks(client)[1]["psi"], reference, current)
+    psi = assert_psi(weeks(client)[1]["psi"], reference, current)
+    # the version matters: against every version's rows of that range the PSI would differ
+    every_version = traffic.between(MONDAY, ref_end).probability.to_numpy()
+    assert every_version.size > reference.size
+    assert not any(psi == pytest.approx(psi_on(edges, every_version, current), rel=1e-9, abs=1e-12)
+                   for edges in snapped_decile_edges(every_version))
 
 
 def test_psi_against_an_uploaded_set(posted) -> None:
@@ -117,8 +126,11 @@ def test_psi_against_an_uploaded_set(posted) -> None:
 
 def test_traffic_reference_with_no_rows_is_undefined(posted) -> None:
     client, _ = posted
-    client.put(f"/v1/models/{MODEL}", json={"reference": {
+    r = client.put(f"/v1/models/{MODEL}", json={"reference": {
         "kind": "traffic", "start": "2025-01-01T00:00:00Z", "end": "2025-02-01T00:00:00Z"}})
+    assert r.status_code == 200, r.text  # a reference is set: its range just holds no rows
+    assert r.json()["reference"]["kind"] == "traffic"
     for period in weeks(client):
+        assert period["n_predictions"] > 0
         assert period["psi"] is None
         assert period["status"]["psi"]["state"] == "no_value"

@@ -20,6 +20,8 @@ from tests.rollup.synthetic import MONDAY, Traffic, make_traffic, post_all, refr
 
 MODEL = "parcel-delay"
 NOW = datetime(2026, 6, 1, tzinfo=UTC)
+# the four ISO weeks of [03-02, 03-30), the span of make_traffic's 28 days from MONDAY
+FOUR_WEEKS = ["2026-03-02T00:00:00Z", "2026-03-09T00:00:00Z", "2026-03-16T00:00:00Z", "2026-03-23T00:00:00Z"]
 
 
 @pytest.fixture
@@ -100,12 +102,17 @@ def test_offset_times_are_instants(loaded) -> None:
     assert_period_matches(body["periods"][0], traffic.between(MONDAY, MONDAY + timedelta(days=7)))
 
 
-@pytest.mark.parametrize(("granularity", "days"), [("week", 10), ("day", 3)])
-def test_trailing_window_covers_n_days_before_each_period_end(loaded, granularity: str, days: int) -> None:
+@pytest.mark.parametrize(("granularity", "days", "starts"), [
+    ("week", 10, ["2026-03-09T00:00:00Z", "2026-03-16T00:00:00Z"]),
+    ("day", 3, [f"2026-03-{d:02d}T00:00:00Z" for d in range(9, 23)]),
+])
+def test_trailing_window_covers_n_days_before_each_period_end(
+    loaded, granularity: str, days: int, starts: list[str]
+) -> None:
     client, traffic = loaded
     body = get(client, start="2026-03-09T00:00:00Z", end="2026-03-23T00:00:00Z", granularity=granularity,
                window=f"{days}d")
-    assert body["periods"]
+    assert [p["start"] for p in body["periods"]] == starts
     for period in body["periods"]:
         end = ts(period["end"])
         assert ts(period["window_start"]) == end - timedelta(days=days)
@@ -126,8 +133,11 @@ def test_version_filter(loaded) -> None:
     body = get(client, start="2026-03-02T00:00:00Z", end="2026-03-30T00:00:00Z", version="shadow")
     assert body["version"] == "shadow"
     shadow = Traffic(traffic.frame[traffic.frame.version == "shadow"])
+    assert [p["start"] for p in body["periods"]] == FOUR_WEEKS
     for period in body["periods"]:
-        assert_period_matches(period, shadow.between(ts(period["start"]), ts(period["end"])))
+        rows = shadow.between(ts(period["start"]), ts(period["end"]))
+        assert len(rows) > 0  # the filter is checked against rows, not empty against empty
+        assert_period_matches(period, rows)
 
 
 def test_unknown_version_gives_empty_periods(loaded) -> None:
@@ -143,8 +153,11 @@ def test_tag_filter_on_declared_key(loaded) -> None:
     body = get(client, start="2026-03-02T00:00:00Z", end="2026-03-30T00:00:00Z", tag="depot:hill")
     assert body["tag"] == "depot:hill"
     hill = Traffic(traffic.frame[traffic.frame.depot == "hill"])
+    assert [p["start"] for p in body["periods"]] == FOUR_WEEKS
     for period in body["periods"]:
-        assert_period_matches(period, hill.between(ts(period["start"]), ts(period["end"])))
+        rows = hill.between(ts(period["start"]), ts(period["end"]))
+        assert len(rows) > 0  # the filter is checked against rows, not empty against empty
+        assert_period_matches(period, rows)
 
 
 def test_tag_and_version_together_with_window(loaded) -> None:
@@ -153,9 +166,12 @@ def test_tag_and_version_together_with_window(loaded) -> None:
                version="v1", window="14d")
     f = traffic.frame
     subset = Traffic(f[(f.depot == "airport") & (f.version == "v1")])
+    assert [p["start"] for p in body["periods"]] == FOUR_WEEKS[2:]
     for period in body["periods"]:
         end = ts(period["end"])
-        assert_period_matches(period, subset.between(end - timedelta(days=14), end))
+        rows = subset.between(end - timedelta(days=14), end)
+        assert len(rows) > 0  # the filters are checked against rows, not empty against empty
+        assert_period_matches(period, rows)
 
 
 def test_each_tag_value_partitions_all(loaded) -> None:

@@ -1,0 +1,69 @@
+"""The unit of work, and the database types the layers above ``store`` may name.
+
+``store`` is the only package that imports SQLAlchemy (docs/architecture.md).
+Services receive a ``Session`` and pass it to repositories; the API and jobs
+hold an ``Engine`` and a ``SessionFactory``. They name these types through this
+module, so the rule "no SQLAlchemy above the store" has one exception, and it
+is a re-export.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from typing import TypeVar
+
+from sqlalchemy import Connection, Engine, text
+from sqlalchemy.exc import OperationalError, SQLAlchemyError
+from sqlalchemy.orm import Session, sessionmaker
+
+__all__ = [
+    "Connection",
+    "DatabaseError",
+    "Engine",
+    "Session",
+    "SessionFactory",
+    "ping",
+    "run_unit_of_work",
+]
+
+T = TypeVar("T")
+SessionFactory = sessionmaker[Session]
+DatabaseError = SQLAlchemyError
+
+# PostgreSQL SQLSTATEs worth one more try: serialization failure, deadlock detected.
+_RETRYABLE_SQLSTATES = {"40001", "40P01"}
+
+
+def run_unit_of_work(sessions: SessionFactory, work: Callable[[Session], T], attempts: int = 3) -> T:
+    """Run ``work`` in one transaction and commit; a return means committed.
+
+    A deadlock or serialization failure between concurrent transactions is
+    retried: every ingest write is idempotent, so a rerun is harmless.
+    """
+    for attempt in range(1, attempts + 1):
+        with sessions() as session:
+            try:
+                result = work(session)
+                session.commit()
+            except OperationalError as exc:
+                session.rollback()
+                if attempt == attempts or _sqlstate(exc) not in _RETRYABLE_SQLSTATES:
+                    raise
+                time.sleep(0.01 * attempt)
+                continue
+            except BaseException:
+                session.rollback()
+                raise
+            return result
+    raise AssertionError("unreachable")
+
+
+def ping(engine: Engine) -> None:
+    """One round trip; raises ``DatabaseError`` when the database cannot answer."""
+    with engine.connect() as conn:
+        conn.execute(text("SELECT 1"))
+
+
+def _sqlstate(exc: OperationalError) -> str | None:
+    return getattr(exc.orig, "sqlstate", None)
