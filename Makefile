@@ -24,10 +24,14 @@ run: migrate
 
 test: $(STAMP)
 	$(BIN)/ruff check service tests migrations demo
+	$(BIN)/lint-imports
+	$(BIN)/mypy
 	$(BIN)/python -m pytest
 
 lint: $(STAMP)
 	$(BIN)/ruff check service tests migrations demo
+	$(BIN)/lint-imports
+	$(BIN)/mypy
 
 # The whole loop in under a minute: an invented courier's six months through a fresh var/demo/.
 demo: $(STAMP)

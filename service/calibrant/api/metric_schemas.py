@@ -1,8 +1,9 @@
 """Response models of …/metrics, …/reliability and the uploaded reference.
 
-The period model is built from the rollup's own key lists (``COUNT_KEYS``,
-``METRIC_KEYS``, ``INTERVAL_KEYS``), so a metric added there appears here with
-its field, its ``_ci`` field when it has an interval, and its status key.
+The period model is built from the metric registry's key lists
+(calibrant.vocabulary.metrics: ``COUNT_KEYS``, ``METRIC_KEYS``,
+``INTERVAL_KEYS``), so a metric added there appears here with its field, its
+``_ci`` field when it has an interval, and its status key.
 """
 
 from __future__ import annotations
@@ -14,41 +15,13 @@ from pydantic import BaseModel, Field, create_model
 from calibrant.api.instant import Instant
 from calibrant.api.schemas import UploadedReferenceOut
 from calibrant.api.sparse import SparseModel
-from calibrant.rollup.metrics_service import INTERVAL_KEYS
-from calibrant.rollup.periods import Granularity
-from calibrant.rollup.query import COUNT_KEYS, METRIC_KEYS
-from calibrant.stats.result import Status
-
-# Literal[...] over the runtime tuples: the schema lists exactly the states and keys the service uses.
-StatusState = Literal[tuple(s.value for s in Status)]
-MetricKey = Literal[(*COUNT_KEYS, *METRIC_KEYS)]
-GranularityName = Literal[tuple(g.value for g in Granularity)]
-
-DESCRIPTIONS: dict[str, str] = {
-    "n_predictions": "Predictions scored in the period (or its trailing window).",
-    "n_labeled": "Predictions of the period that have an outcome.",
-    "n_immature": "Predictions whose outcome horizon + lag has not yet passed; label metrics leave them out.",
-    "label_coverage": "n_labeled / n_predictions.",
-    "mean_probability": "Mean predicted probability over every prediction.",
-    "observed_rate": "Share of mature labeled predictions that had the event.",
-    "oe_ratio": "Observed events / expected events (sum of probabilities); 1 when calibrated in the large.",
-    "log_loss": "Mean negative log-likelihood of the outcomes, natural log.",
-    "log_loss_expected": "Log-loss to expect if the probabilities were calibrated (mean binary entropy).",
-    "brier": "Mean squared difference between probability and outcome.",
-    "brier_reliability": "Reliability term of the Murphy decomposition of the Brier score (lower is better).",
-    "brier_resolution": "Resolution term of the Murphy decomposition (higher is better).",
-    "brier_uncertainty": "Uncertainty term of the Murphy decomposition: observed rate × (1 − observed rate).",
-    "calibration_intercept": "Logistic intercept with logit(p) as offset; 0 when calibrated in the large.",
-    "calibration_slope": "Slope of the logistic regression of the outcome on logit(p); 1 when calibrated.",
-    "spiegelhalter_z": "Spiegelhalter's z statistic for calibration; near 0 when calibrated.",
-    "ece": "Expected calibration error: bin-weighted mean |observed rate − mean probability|.",
-    "auc": "Area under the ROC curve (discrimination).",
-    "psi": "Population stability index of the scores against the model's reference.",
-}
+from calibrant.rollup.periods import GranularityName
+from calibrant.stats.result import StatusName
+from calibrant.vocabulary.metrics import BY_KEY, COUNT_KEYS, INTERVAL_KEYS, METRIC_KEYS, PeriodKey
 
 
 class MetricStatus(BaseModel):
-    state: StatusState = Field(description="measured, too_few_cases or no_value.")
+    state: StatusName = Field(description="measured, too_few_cases or no_value.")
     reason: str = Field(description="Why there is no trustworthy value, in words one can act on.")
 
 
@@ -63,15 +36,13 @@ class _PeriodBase(SparseModel):
 
 
 def _description(key: str) -> str:
-    if key not in DESCRIPTIONS:
-        raise KeyError(f"metric {key!r} has no description in calibrant.api.metric_schemas.DESCRIPTIONS")
-    return DESCRIPTIONS[key]
+    return BY_KEY[key].description
 
 
 def _period_fields() -> dict[str, Any]:
     fields: dict[str, Any] = {}
-    for key in COUNT_KEYS:
-        fields[key] = (int, Field(description=_description(key)))
+    for count_key in COUNT_KEYS:
+        fields[count_key] = (int, Field(description=_description(count_key)))
     for key in METRIC_KEYS:
         fields[key] = (float | None, Field(description=_description(key)))
         if key in INTERVAL_KEYS:
@@ -80,7 +51,7 @@ def _period_fields() -> dict[str, Any]:
                 Field(description=f"95 % interval [low, high] of {key}; null when there is none."),
             )
     fields["status"] = (
-        dict[MetricKey, MetricStatus],
+        dict[PeriodKey, MetricStatus],
         Field(description="For each metric without a measured value: its state and the reason."),
     )
     return fields

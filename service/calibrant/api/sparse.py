@@ -15,9 +15,10 @@ from pydantic import BaseModel, SerializerFunctionWrapHandler, model_serializer
 class SparseModel(BaseModel):
     omitted_when_absent: ClassVar[frozenset[str]] = frozenset()
 
-    # No return annotation on purpose: pydantic then documents the model's own fields.
+    # No return annotation on purpose: pydantic reads one as the serialized schema and would then
+    # document a bare dict instead of the model's own fields, so mypy is told to let it be.
     @model_serializer(mode="wrap")
-    def _omit_absent(self, handler: SerializerFunctionWrapHandler):
+    def _omit_absent(self, handler: SerializerFunctionWrapHandler):  # type: ignore[no-untyped-def]
         data: dict[str, Any] = handler(self)
         for name in self.omitted_when_absent - self.model_fields_set:
             data.pop(name, None)

@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-from typing import Literal
+from typing import Literal, get_args
 
 from pydantic import BaseModel, ConfigDict, Field
 
 from calibrant.api.instant import Instant
+from calibrant.vocabulary.names import NAME_PATTERN
 
 EventType = Literal["alarm.opened", "alarm.resolved"]
-MODEL_NAME = r"^[a-z0-9][a-z0-9_-]{0,63}$"
 
 
 class WebhookCreate(BaseModel):
@@ -17,9 +17,9 @@ class WebhookCreate(BaseModel):
 
     url: str = Field(min_length=1, max_length=2000, description="http or https URL of the receiver.")
     description: str = Field("", max_length=500)
-    model: str | None = Field(None, pattern=MODEL_NAME, description="Only this model's events; null: all.")
+    model: str | None = Field(None, pattern=NAME_PATTERN, description="Only this model's events; null: all.")
     types: list[EventType] = Field(
-        default_factory=lambda: ["alarm.opened", "alarm.resolved"], min_length=1, max_length=10
+        default_factory=lambda: list(get_args(EventType)), min_length=1, max_length=10
     )
 
 
@@ -30,7 +30,7 @@ class WebhookUpdate(BaseModel):
 
     url: str | None = Field(None, min_length=1, max_length=2000)
     description: str | None = Field(None, max_length=500)
-    model: str | None = Field(None, pattern=MODEL_NAME)
+    model: str | None = Field(None, pattern=NAME_PATTERN)
     types: list[EventType] | None = Field(None, min_length=1, max_length=10)
 
 

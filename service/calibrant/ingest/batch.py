@@ -50,6 +50,7 @@ def _load_items(body: bytes, member: str, max_items: int) -> list[Any]:
         )
     if errors:
         raise InvalidInput(f"the body does not have the shape {{{member!r}: [...]}}", errors)
+    assert isinstance(items, list)  # anything else was reported as an error above
     return items
 
 

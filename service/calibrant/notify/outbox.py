@@ -17,7 +17,14 @@ from calibrant.config import Settings
 from calibrant.notify import backoff, payloads, signing
 from calibrant.store import models_repo, outbox_repo, webhook_targets_repo
 from calibrant.store.unit import Session
-from calibrant.store.webhook_tables import DELIVERED, FAILED, PENDING, WebhookDelivery, WebhookTarget
+from calibrant.store.webhook_tables import (
+    DELIVERED,
+    FAILED,
+    PENDING,
+    DeliveryState,
+    WebhookDelivery,
+    WebhookTarget,
+)
 
 
 def enqueue(
@@ -64,7 +71,7 @@ def _deliver_to(session: Session, event_id: int, target: WebhookTarget, at: date
 class Verdict:
     """Where a delivery goes after one attempt."""
 
-    state: str
+    state: DeliveryState
     next_attempt_at: datetime | None
     finished_at: datetime | None
 

@@ -5,12 +5,19 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from enum import StrEnum
+from typing import Literal, get_args
 
 
 class Granularity(StrEnum):
     DAY = "day"
     WEEK = "week"
     MONTH = "month"
+
+
+# The values of Granularity as a type, for schemas; importing fails if the two ever list different names.
+GranularityName = Literal["day", "week", "month"]
+if tuple(g.value for g in Granularity) != get_args(GranularityName):
+    raise RuntimeError("calibrant.rollup.periods: GranularityName and Granularity list different names")
 
 
 @dataclass(frozen=True, slots=True)

@@ -25,11 +25,6 @@ from calibrant.store.tables import Model
 from calibrant.store.unit import Connection
 from calibrant.vocabulary import metrics
 
-# The metric registry's key lists, kept importable from here while api and alarms import them from here.
-COUNT_KEYS = metrics.COUNT_KEYS
-METRIC_KEYS = metrics.METRIC_KEYS
-
-
 NO_REFERENCE = (
     "the model has no reference: set `reference` with PUT /v1/models/{model}, "
     "or upload a validation set to POST /v1/models/{model}/reference"
@@ -116,9 +111,11 @@ def _plan(
     if first >= last:
         return _Plan(frozenset(), None, [(start, end)])
     stale = dirty.dirty_days(conn, model_id, first, last)
-    cut = None if boundary is None else day_of(boundary)
-    # The boundary's own day is mixed unless the boundary is its last hour (then it is all mature).
-    mixed = cut if cut is not None and boundary < cut + DAY - HOUR else None
+    mixed: datetime | None = None
+    if boundary is not None:
+        cut = day_of(boundary)
+        # The boundary's own day is mixed unless the boundary is its last hour (then it is all mature).
+        mixed = cut if boundary < cut + DAY - HOUR else None
     whole = [first + i * DAY for i in range((last - first) // DAY)]
     from_days = frozenset(d for d in whole if d not in stale and d != mixed)
     gaps: list[tuple[datetime, datetime]] = []

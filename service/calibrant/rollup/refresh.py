@@ -153,7 +153,9 @@ def _read_buckets(engine: Engine, keys: list[BucketKey], chunk_rows: int) -> lis
     return out
 
 
-def _write_buckets(engine: Engine, clock: Clock, work: list[tuple[dirty.Claim, _Computed]]) -> list[bool]:
+def _write_buckets(
+    engine: Engine, clock: Clock, work: list[tuple[dirty.Claim[BucketKey], _Computed]]
+) -> list[bool]:
     """Store each bucket's summaries and clear its mark if its generation is unchanged.
 
     One transaction; locks are taken in ascending order (segment values, then buckets by
@@ -198,8 +200,8 @@ def _merge_day(
 
 
 def _claim(
-    engine: Engine, clock: Clock, key: dirty.Key, worker: str, lease: timedelta, report: RefreshReport
-) -> dirty.Claim | None:
+    engine: Engine, clock: Clock, key: dirty.KeyT, worker: str, lease: timedelta, report: RefreshReport
+) -> dirty.Claim[dirty.KeyT] | None:
     """Take the mark for this worker in its own transaction; None (counted busy) if held."""
     with engine.begin() as conn:
         claim = dirty.claim(conn, key, worker, clock.now(), lease)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Literal
+
 import numpy as np
 
 from calibrant.stats._numerics import weighted_quantile
@@ -37,7 +39,7 @@ def assign_bins(p: np.ndarray, edges: np.ndarray, *, closed: str) -> np.ndarray:
     rule, and the one the mergeable summary's fine grid uses.
     Values below the first or above the last edge go to the end bins.
     """
-    side = "left" if closed == "right" else "right"
+    side: Literal["left", "right"] = "left" if closed == "right" else "right"
     return np.searchsorted(edges[1:-1], p, side=side)
 
 

@@ -49,7 +49,13 @@ def ece_from_bin_sums(counts: ArrayLike, sum_p: ArrayLike, sum_y: ArrayLike) -> 
 
 
 def _ece(
-    y_true, y_proba, sample_weight, n_bins, strategy, closed) -> Estimate:
+    y_true: ArrayLike,
+    y_proba: ArrayLike,
+    sample_weight: ArrayLike | None,
+    n_bins: int,
+    strategy: str,
+    closed: str,
+) -> Estimate:
     n_bins = check_n_bins(n_bins)
     strategy = check_strategy(strategy)
     closed = check_closed(closed)

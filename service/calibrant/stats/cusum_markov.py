@@ -46,7 +46,7 @@ from __future__ import annotations
 import math
 import warnings
 from dataclasses import dataclass
-from typing import Literal
+from typing import Literal, cast
 
 import numpy as np
 import scipy.linalg
@@ -147,7 +147,8 @@ def increment_mix(
         group = np.minimum(((x - lo) / span * max_points).astype(np.int64), max_points - 1)
 
     def per_group(values: NDArray[np.float64]) -> NDArray[np.float64]:
-        return np.bincount(group, weights=values, minlength=max_points)
+        # numpy's stubs type bincount as integer counts; with float weights it returns float64.
+        return cast(NDArray[np.float64], np.bincount(group, weights=values, minlength=max_points))
 
     count = np.bincount(group, minlength=max_points).astype(np.float64)
     keep = count > 0

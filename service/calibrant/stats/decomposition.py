@@ -64,10 +64,10 @@ def murphy_from_bin_sums(
     unc = ybar * (1.0 - ybar)
     wbv = float(np.sum(np.maximum(sp2 - sp * sp / nk, 0.0))) / n
     wbc = 2.0 * float(np.sum(spy - sp * ok_ / nk)) / n
-    vals = [finite_or_none(v) for v in (rel, res, unc, wbv, wbc, rel - res + unc + wbv - wbc)]
-    if any(v is None for v in vals):
+    terms = (rel, res, unc, wbv, wbc, rel - res + unc + wbv - wbc)
+    if any(finite_or_none(v) is None for v in terms):
         return BrierDecomposition(Status.NO_VALUE, "not finite for this input", n)
-    return BrierDecomposition(Status.MEASURED, "", n, *vals, n_bins_nonempty=int(nz.sum()))  # type: ignore[arg-type]
+    return BrierDecomposition(Status.MEASURED, "", n, *terms, n_bins_nonempty=int(nz.sum()))
 
 
 def murphy_decomposition(

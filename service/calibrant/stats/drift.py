@@ -12,6 +12,7 @@ mergeable summary uses.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -76,7 +77,12 @@ def _pair(ref_counts: ArrayLike, cur_counts: ArrayLike) -> tuple[np.ndarray, np.
 
 
 def _multinomial_null(
-    r: np.ndarray, c: np.ndarray, statistic, *, n_null: int, seed: int
+    r: np.ndarray,
+    c: np.ndarray,
+    statistic: Callable[[np.ndarray, np.ndarray], float],
+    *,
+    n_null: int,
+    seed: int,
 ) -> np.ndarray:
     """Statistic under "no shift": both samples multinomial from the pooled proportions."""
     rng = np.random.default_rng(seed)
@@ -170,7 +176,13 @@ def psi(
 
 
 def _histograms(
-    reference, current, edges, n_bins, reference_weight, current_weight):
+    reference: ArrayLike,
+    current: ArrayLike,
+    edges: ArrayLike | None,
+    n_bins: int,
+    reference_weight: ArrayLike | None,
+    current_weight: ArrayLike | None,
+) -> tuple[np.ndarray, np.ndarray]:
     e = (reference_bin_edges(reference, n_bins=n_bins, sample_weight=reference_weight)
          if edges is None else np.asarray(edges, dtype=np.float64))
     return (histogram(reference, e, sample_weight=reference_weight),

@@ -8,8 +8,10 @@ returns a result whose ``status`` says why there is no number.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from enum import StrEnum
+from typing import Literal, get_args
 
 import numpy as np
 
@@ -20,6 +22,12 @@ class Status(StrEnum):
     MEASURED = "measured"
     TOO_FEW_CASES = "too_few_cases"  # defined in principle, too little data to trust
     NO_VALUE = "no_value"  # no value exists for this input (e.g. AUC with one class)
+
+
+# The values of Status as a type, for schemas; importing fails if the two ever list different names.
+StatusName = Literal["measured", "too_few_cases", "no_value"]
+if tuple(s.value for s in Status) != get_args(StatusName):
+    raise RuntimeError("calibrant.stats.result: StatusName and Status list different names")
 
 
 @dataclass(frozen=True, slots=True)
@@ -58,7 +66,7 @@ def missing(
     status: Status,
     reason: str,
     n: float | None = None,
-    extra: dict[str, float | int | str | None] | None = None,
+    extra: Mapping[str, float | int | str | None] | None = None,
 ) -> Estimate:
     """An estimate with no value, stating why."""
     return Estimate(value=None, status=status, reason=reason, n=finite_or_none(n),
@@ -66,7 +74,7 @@ def missing(
 
 
 def clean_extra(
-    extra: dict[str, float | int | str | None] | None,
+    extra: Mapping[str, float | int | str | None] | None,
 ) -> dict[str, float | int | str | None]:
     """Copy ``extra`` with floats passed through :func:`finite_or_none`, ints kept as ints."""
     clean: dict[str, float | int | str | None] = {}
@@ -86,7 +94,7 @@ def estimate(
     se: float | None = None,
     ci: tuple[float, float] | None = None,
     n: float | None = None,
-    extra: dict[str, float | int | str | None] | None = None,
+    extra: Mapping[str, float | int | str | None] | None = None,
     reason: str = "",
     no_value_reason: str = "not finite for this input",
 ) -> Estimate:

@@ -15,6 +15,7 @@ Sse = Σw(p − y)², Sse2 = Σw(p − y)⁴, Spq = Σw p(1 − p).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -366,7 +367,7 @@ def _reference_brier(ybar: float, pi0: float | None) -> float:
 
 
 def _skill(n: float, n1: float, total: float, pi0: float | None, name: str,
-           reference_score, zero_reason: str) -> Estimate:
+           reference_score: Callable[[float, float | None], float], zero_reason: str) -> Estimate:
     """1 − (total/n) / score_ref(ȳ, π0), with the reference and both scores in ``extra``."""
     if pi0 is not None and not 0.0 <= pi0 <= 1.0:
         raise ValueError(f"pi0 must lie in [0, 1], got {pi0!r}")
@@ -375,8 +376,8 @@ def _skill(n: float, n1: float, total: float, pi0: float | None, name: str,
         return missing(Status.NO_VALUE, _EMPTY, n=0.0, extra={"reference": reference})
     ybar = n1 / n
     ref = reference_score(ybar, pi0)
-    extra = {"reference": reference, name: total / n, f"{name}_reference": ref, "pi0": pi0,
-             "prevalence": ybar}
+    extra: dict[str, float | int | str | None] = {
+        "reference": reference, name: total / n, f"{name}_reference": ref, "pi0": pi0, "prevalence": ybar}
     if not ref > 0.0:
         return missing(Status.NO_VALUE, zero_reason, n=n, extra=extra)
     return estimate(1.0 - (total / n) / ref, n=n, extra=extra)

@@ -104,5 +104,5 @@ def first_bucket_hour(conn: Connection, model_id: int) -> datetime | None:
 
 def has_dirty_before(conn: Connection, model_id: int, end: datetime) -> bool:
     """Whether some bucket before ``end`` still waits for the rollup (its summaries are stale)."""
-    return conn.scalar(select(func.count()).select_from(DirtyBucket).where(
-        DirtyBucket.model_id == model_id, DirtyBucket.hour < end)) > 0
+    return conn.execute(select(func.count()).select_from(DirtyBucket).where(
+        DirtyBucket.model_id == model_id, DirtyBucket.hour < end)).scalar_one() > 0

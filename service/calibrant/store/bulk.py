@@ -54,6 +54,13 @@ def db_instant(conn: Connection, value: datetime) -> Any:
     return sqlite_instant(value) if conn.dialect.name == "sqlite" else value
 
 
+def _driver_connection(conn: Connection) -> Any:
+    """The driver's own connection (psycopg or sqlite3) under ``conn``, for COPY and executemany."""
+    raw = conn.connection.driver_connection
+    assert raw is not None, "a connection in use always holds its driver connection"
+    return raw
+
+
 def stage(conn: Connection, table: str, columns: StagingColumns, rows: list[tuple]) -> None:
     """Replace the contents of temporary table ``table`` with ``rows``.
 
@@ -73,7 +80,7 @@ def _stage_postgresql(conn: Connection, table: str, columns: StagingColumns, row
     # its rows only as long as the transaction (a rollback empties it too).
     conn.exec_driver_sql(f"CREATE TEMP TABLE IF NOT EXISTS {table} ({ddl}) ON COMMIT DELETE ROWS")
     conn.exec_driver_sql(f"TRUNCATE {table}")
-    raw = conn.connection.driver_connection
+    raw = _driver_connection(conn)
     names = ", ".join(name for name, _, _ in columns)
     types = [pg.split()[0] for _, pg, _ in columns]
     with raw.cursor() as cur, cur.copy(f"COPY {table} ({names}) FROM STDIN (FORMAT BINARY)") as copy:
@@ -91,7 +98,7 @@ def _stage_sqlite(conn: Connection, table: str, columns: StagingColumns, rows: l
         rows = [_with_sqlite_times(row, time_positions) for row in rows]
     placeholders = ", ".join("?" for _ in columns)
     names = ", ".join(name for name, _, _ in columns)
-    raw = conn.connection.driver_connection
+    raw = _driver_connection(conn)
     sql = f"INSERT INTO temp.{table} ({names}) VALUES ({placeholders})"  # noqa: S608 — constants
     raw.executemany(sql, rows)
 
@@ -123,7 +130,7 @@ def append_if_all_new(conn: Connection, table: str, columns: StagingColumns, row
     assert conn.dialect.name == "postgresql", "SQLite batches always merge via staging"
     conn.exec_driver_sql("SAVEPOINT append_if_all_new")
     try:
-        raw = conn.connection.driver_connection
+        raw = _driver_connection(conn)
         names = ", ".join(name for name, _, _ in columns)
         with raw.cursor() as cur, cur.copy(f"COPY {table} ({names}) FROM STDIN (FORMAT BINARY)") as copy:
             copy.set_types([pg.split()[0] for _, pg, _ in columns])

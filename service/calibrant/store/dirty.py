@@ -12,8 +12,9 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime, timedelta
+from typing import Any, Generic, TypeVar, cast, overload
 
-from sqlalchemy import Connection, Table, and_, delete, func, or_, select, update
+from sqlalchemy import ColumnElement, Connection, Table, and_, delete, func, or_, select, update
 
 from calibrant.store.rollup_tables import BucketSummary, DirtyBucket, DirtyDay
 from calibrant.store.upsert import insert_for
@@ -51,33 +52,35 @@ class DayKey:
 
 
 Key = BucketKey | DayKey
+KeyT = TypeVar("KeyT", bound=Key)  # one tier's key type, kept through a claim
 
 
 @dataclass(frozen=True, slots=True)
-class Tier:
+class Tier(Generic[KeyT]):
     """Where the marks of one key type live."""
 
     table: Table
     time_column: str
-    key_type: type
+    key_type: type[KeyT]
 
 
-HOURS = Tier(DirtyBucket.__table__, "hour", BucketKey)
-DAYS = Tier(DirtyDay.__table__, "day", DayKey)
+# A declarative class's __table__ is typed as any FromClause; with __tablename__ it is a Table.
+HOURS: Tier[BucketKey] = Tier(cast(Table, DirtyBucket.__table__), "hour", BucketKey)
+DAYS: Tier[DayKey] = Tier(cast(Table, DirtyDay.__table__), "day", DayKey)
 
 
-def _tier(key: Key) -> Tier:
+def _tier(key: Key) -> Tier[BucketKey] | Tier[DayKey]:
     return DAYS if isinstance(key, DayKey) else HOURS
 
 
 @dataclass(frozen=True, slots=True)
-class Claim:
-    key: Key
+class Claim(Generic[KeyT]):
+    key: KeyT
     generation: int
     worker: str
 
 
-def mark(conn: Connection, keys: Iterable[Key], now: datetime) -> int:
+def mark(conn: Connection, keys: Iterable[KeyT], now: datetime) -> int:
     """Mark buckets (or days) dirty, bumping the generation of ones already marked.
 
     Keys are written in sorted order so that concurrent writers touching the
@@ -112,7 +115,11 @@ def mark_whole_model(conn: Connection, model_id: int, now: datetime) -> int:
     return mark(conn, (BucketKey(model_id, v, h) for v, h in keys), now)
 
 
-def candidates(conn: Connection, now: datetime, limit: int, tier: Tier = HOURS) -> list[Key]:
+@overload
+def candidates(conn: Connection, now: datetime, limit: int) -> list[BucketKey]: ...
+@overload
+def candidates(conn: Connection, now: datetime, limit: int, tier: Tier[KeyT]) -> list[KeyT]: ...
+def candidates(conn: Connection, now: datetime, limit: int, tier: Tier[Any] = HOURS) -> list[Any]:
     """Unclaimed (or lease-expired) marks of ``tier``, oldest first."""
     t = tier.table
     when = t.c[tier.time_column]
@@ -125,14 +132,14 @@ def candidates(conn: Connection, now: datetime, limit: int, tier: Tier = HOURS) 
     return [tier.key_type(m, v, h) for m, v, h in rows]
 
 
-def _key_clause(key: Key):
+def _key_clause(key: Key) -> ColumnElement[bool]:
     tier = _tier(key)
     t = tier.table
     return and_(t.c.model_id == key.model_id, t.c.version == key.version,
                 t.c[tier.time_column] == key.start)
 
 
-def claim(conn: Connection, key: Key, worker: str, now: datetime, lease: timedelta) -> Claim | None:
+def claim(conn: Connection, key: KeyT, worker: str, now: datetime, lease: timedelta) -> Claim[KeyT] | None:
     """Take the bucket for ``worker`` unless another worker holds a live lease.
 
     One conditional UPDATE: on PostgreSQL a concurrent claimer blocks on the row
@@ -154,7 +161,7 @@ def claim(conn: Connection, key: Key, worker: str, now: datetime, lease: timedel
     return None if row is None else Claim(key, int(row[0]), worker)
 
 
-def finish(conn: Connection, claim_: Claim) -> bool:
+def finish(conn: Connection, claim_: Claim[KeyT]) -> bool:
     """Clear the mark if its generation is unchanged; else release it for another pass.
 
     Returns True when the bucket (or day) is clean.
@@ -177,7 +184,7 @@ def finish(conn: Connection, claim_: Claim) -> bool:
     return False
 
 
-def backlog(conn: Connection, tier: Tier = HOURS) -> int:
+def backlog(conn: Connection, tier: Tier[Any] = HOURS) -> int:
     """How many marks of ``tier`` wait for a refresh."""
     return int(conn.execute(select(func.count()).select_from(tier.table)).scalar() or 0)
 

@@ -61,6 +61,7 @@ class OutcomeWrite:
 def insert_predictions(
     conn: Connection, model_id: int, batch: PredictionColumns, received_at: datetime
 ) -> PredictionWrite:
+    conflicts: list[PredictionConflict]
     if _append_clean_batch(conn, model_id, batch, received_at):
         inserted, conflicts = len(batch), []
     else:

@@ -23,7 +23,8 @@ from datetime import UTC, datetime, timedelta
 
 import numpy as np
 import orjson
-from sqlalchemy import Connection, and_, func, select
+from sqlalchemy import ColumnElement, Connection, and_, func, select
+from sqlalchemy.orm import QueryableAttribute
 
 from calibrant.store.tables import Model, Outcome, Prediction
 
@@ -158,7 +159,7 @@ def _next_maturity_bound(conn: Connection, model: Model, version: str,
     With a horizon maturity grows with scored_at. Without one, a case maturing after t has
     scored_at > t or first_observed_at > t, and matures no earlier than that time.
     """
-    def first(column, *where) -> datetime | None:
+    def first(column: QueryableAttribute[datetime], *where: ColumnElement[bool]) -> datetime | None:
         v = conn.scalar(select(func.min(column)).where(*where))
         return v.replace(tzinfo=UTC) if v is not None and v.tzinfo is None else v  # SQLite's MIN()
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
 
 from alembic import command
@@ -20,7 +21,7 @@ def alembic_config(engine: Engine | None = None) -> Config:
     return cfg
 
 
-def _with_connection(engine: Engine, action, *args: str) -> None:
+def _with_connection(engine: Engine, action: Callable[..., None], *args: str) -> None:
     cfg = alembic_config(engine)
     with engine.begin() as conn:
         cfg.attributes["connection"] = conn

@@ -4,8 +4,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime
+from typing import Any, cast
 
 from sqlalchemy import func, select
+from sqlalchemy.engine import CursorResult
 from sqlalchemy.orm import Session
 
 from calibrant.store.tables import Model, Outcome, Prediction
@@ -25,7 +27,7 @@ def get_or_create(session: Session, name: str, now: datetime) -> tuple[Model, bo
     existing = get(session, name)
     if existing is not None:
         return existing, False
-    values = {
+    values: dict[str, Any] = {
         "name": name,
         "description": "",
         "outcome_horizon_days": None,
@@ -37,11 +39,12 @@ def get_or_create(session: Session, name: str, now: datetime) -> tuple[Model, bo
         "created_at": now,
         "updated_at": now,
     }
-    result = session.execute(
+    # Session.execute is typed as returning a Result; for DML it is a CursorResult, which has rowcount.
+    result = cast(CursorResult[Any], session.execute(
         insert_for(session.get_bind().dialect.name, Model)
         .values(**values)
         .on_conflict_do_nothing(index_elements=["name"])
-    )
+    ))
     created = bool(result.rowcount)
     model = get(session, name)
     assert model is not None  # either we or a concurrent writer inserted it

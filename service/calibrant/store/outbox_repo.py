@@ -15,12 +15,15 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime, timedelta
+from typing import Any, cast
 
 from sqlalchemy import ColumnElement, and_, func, or_, select, update
+from sqlalchemy.engine import CursorResult
 from sqlalchemy.orm import Session
 
 from calibrant.store.webhook_tables import (
     PENDING,
+    DeliveryState,
     OutboxEvent,
     WebhookAttempt,
     WebhookDelivery,
@@ -93,12 +96,13 @@ def claim_due(
 
 def renew_claim(session: Session, delivery_id: int, *, token: str, now: datetime, lease: timedelta) -> bool:
     """Extend our claim just before an attempt; False if it lapsed and may be someone else's."""
-    result = session.execute(
+    # Session.execute is typed as returning a Result; for DML it is a CursorResult, which has rowcount.
+    result = cast(CursorResult[Any], session.execute(
         update(D)
         .where(D.id == delivery_id, D.claim_token == token, D.claimed_until > now, D.state == PENDING)
         .values(claimed_until=now + lease)
         .execution_options(synchronize_session=False)
-    )
+    ))
     return bool(result.rowcount)
 
 
@@ -139,7 +143,7 @@ def record_attempt(
     status_code: int | None,
     latency_ms: float,
     error: str | None,
-    state: str,
+    state: DeliveryState,
     next_attempt_at: datetime | None,
     finished_at: datetime | None,
 ) -> bool:
@@ -156,7 +160,8 @@ def record_attempt(
             next_attempt_at=next_attempt_at,
         )
     )
-    result = session.execute(
+    # Session.execute is typed as returning a Result; for DML it is a CursorResult, which has rowcount.
+    result = cast(CursorResult[Any], session.execute(
         update(D)
         .where(D.id == delivery.id, D.claim_token == token)
         .values(
@@ -168,7 +173,7 @@ def record_attempt(
             claimed_until=None,
         )
         .execution_options(synchronize_session=False)
-    )
+    ))
     return bool(result.rowcount)
 
 
@@ -211,11 +216,11 @@ def deliveries_of(
     ids = [row[0].id for row in rows]
     attempts: dict[int, list[WebhookAttempt]] = {i: [] for i in ids}
     if ids:
-        query = (
+        attempt_query = (
             select(WebhookAttempt)
             .where(WebhookAttempt.delivery_id.in_(ids))
             .order_by(WebhookAttempt.delivery_id, WebhookAttempt.number, WebhookAttempt.id)
         )
-        for attempt in session.scalars(query):
+        for attempt in session.scalars(attempt_query):
             attempts[attempt.delivery_id].append(attempt)
     return [DeliveryRecord(row[0], row[1], attempts[row[0].id]) for row in rows]

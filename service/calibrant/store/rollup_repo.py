@@ -24,7 +24,9 @@ from calibrant.store.upsert import insert_for
 HOUR = timedelta(hours=1)
 DAY = timedelta(days=1)
 # Summary table and its time column, per key type.
-_TIER_TABLE: dict[type, tuple[type, str]] = {BucketKey: (BucketSummary, "hour"), DayKey: (DaySummary, "day")}
+_TIER_TABLE: dict[type[Key], tuple[type[BucketSummary] | type[DaySummary], str]] = {
+    BucketKey: (BucketSummary, "hour"), DayKey: (DaySummary, "day")
+}
 
 
 @dataclass(frozen=True, slots=True)

@@ -21,11 +21,7 @@ from sqlalchemy.orm import Mapped, mapped_column
 
 from calibrant.store.tables import Base
 from calibrant.store.types import BigIntPK
-from calibrant.vocabulary import segments
 
-# segment_key and segment_value of the "all predictions" summary. Defined in the vocabulary;
-# kept here while alarms still imports it from this module.
-ALL_SEGMENT = segments.ALL_SEGMENT
 OTHER_VALUE = "other"  # where values beyond a key's first MAX_SEGMENT_VALUES go
 MAX_SEGMENT_VALUES = 50
 

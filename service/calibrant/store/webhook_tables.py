@@ -9,6 +9,7 @@ here, so a restarted process carries on where the previous one stopped.
 from __future__ import annotations
 
 from datetime import datetime
+from typing import Final, Literal
 
 from sqlalchemy import JSON, Double, ForeignKey, Index, Integer, String, Text
 from sqlalchemy.orm import Mapped, mapped_column
@@ -16,9 +17,10 @@ from sqlalchemy.orm import Mapped, mapped_column
 from calibrant.store.tables import Base
 from calibrant.store.types import BigIntPK
 
-PENDING = "pending"  # waiting for its next attempt (or being attempted under a claim)
-DELIVERED = "delivered"  # a 2xx was received
-FAILED = "failed"  # the retry window ran out; no further attempts
+DeliveryState = Literal["pending", "delivered", "failed"]
+PENDING: Final = "pending"  # waiting for its next attempt (or being attempted under a claim)
+DELIVERED: Final = "delivered"  # a 2xx was received
+FAILED: Final = "failed"  # the retry window ran out; no further attempts
 
 
 class WebhookTarget(Base):
@@ -67,7 +69,7 @@ class WebhookDelivery(Base):
     target_id: Mapped[int] = mapped_column(
         Integer, ForeignKey("webhook_targets.id", ondelete="CASCADE")
     )
-    state: Mapped[str] = mapped_column(String(16))
+    state: Mapped[DeliveryState] = mapped_column(String(16))
     attempts: Mapped[int] = mapped_column(Integer, default=0)
     next_attempt_at: Mapped[datetime | None] = mapped_column(nullable=True)
     claim_token: Mapped[str | None] = mapped_column(String(40), nullable=True)

@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 from datetime import datetime
+from typing import Any, cast
 
 from sqlalchemy import case, delete, select, update
+from sqlalchemy.engine import CursorResult
 from sqlalchemy.orm import Session
 
 from calibrant.store.webhook_tables import WebhookTarget
@@ -56,7 +58,10 @@ def subscribed(session: Session, kind: str, model_name: str | None) -> list[Webh
 
 def remove(session: Session, target_id: int) -> bool:
     """Delete a target; its deliveries and their attempts go with it (ON DELETE CASCADE)."""
-    result = session.execute(delete(WebhookTarget).where(WebhookTarget.id == target_id))
+    # Session.execute is typed as returning a Result; for DML it is a CursorResult, which has rowcount.
+    result = cast(
+        CursorResult[Any], session.execute(delete(WebhookTarget).where(WebhookTarget.id == target_id))
+    )
     return bool(result.rowcount)
 
 
@@ -65,6 +70,7 @@ def record_result(
 ) -> None:
     """Count consecutive failures in one UPDATE, so concurrent workers never lose a count."""
     t = WebhookTarget
+    values: dict[str, Any]  # plain values, or SQL expressions over the row's current values
     if delivered:
         values = {"consecutive_failures": 0, "failing_since": None, "last_success_at": now}
     else:
