@@ -56,12 +56,15 @@ def _keep_only_charts(client: Client, days: int) -> None:
         if rule["name"] in CHART_RULES:
             continue
         client.request("PUT", f"/v1/models/{scenario.MODEL}/rules/{rule['name']}", json={"enabled": False})
-        per_year = rule["false_alarms"].get("per_year")
+        share = rule["false_alarms"].get("share_per_year")
         # The traffic is history that ended days ago: the feed is silent by construction.
-        cost = (f"expects {per_year * days / 365.25:.1f} false alarms over {days} days" if per_year
-                else "the demo's feed is historical, so it is silent by construction")
+        cost = ("the demo's feed is historical, so it is silent by construction"
+                if rule["kind"] == "starvation" else
+                f"its share of the budget, {share * days / 365.25:.2f} false alarms over {days} days"
+                if share else "outside the budget")
         say(f"  rule {rule['name']} disabled for the demo ({cost})")
-    say("  kept: calibration charts, designed for 1 false alarm a year for the whole model")
+    say("  kept: the two calibration charts, which now share the model's whole budget of "
+        "1 false alarm a year")
 
 
 def _print_delivery(delivery: Delivery) -> None:

@@ -50,7 +50,11 @@ def test_odds_doubling_in_one_segment_alarm_outbox_resolve_restart_and_backtest(
     crossed = datetime.fromisoformat(ev["crossed_at"].replace("Z", "+00:00"))
     assert crossed >= change_matures
     assert ev["statistic"] > ev["control_limit"] == ev["design"]["control_limit"]
-    assert ev["design"]["n_charts"] == 6  # 2 rules x (all + north + south)
+    # The rule's own streams (all + north + south) share the rule's half of the budget: the two
+    # chart rules are the only ones enabled, with equal weights (docs/methods.md §18.5).
+    assert ev["design"]["n_charts"] == 3
+    assert ev["budget_share_per_year"] == ev["design"]["budget_share_per_year"] == 0.5
+    assert south["budget_share_per_year"] == 0.5
     assert ev["chart_path"][-1][1] == ev["statistic"]
     # Delay: cases of the south stream between the change and the crossing, vs the chain's ARL1.
     risks = np.random.default_rng(0).beta(2, 8, 4000)

@@ -18,6 +18,7 @@ from datetime import timedelta
 
 import numpy as np
 import pandas as pd
+import pytest
 from fastapi.testclient import TestClient
 from scipy import stats
 
@@ -26,7 +27,11 @@ from tests.alarms.streams import T0, make_day, post_day, refresh, setup_model
 from tests.conftest import Database, make_client
 from tests.rollup.test_metrics_reference import psi_on, snapped_decile_edges
 
-LEVEL, MIN_N = 0.01, 100  # the default rule's parameters (rules.DriftParams)
+MIN_N = 100  # the default rule's minimum predictions (kinds.score_drift.DriftParams)
+# Each test's level from the model's budget (docs/methods.md §18.5): the two drift rules are the
+# only enabled ones, equal weights, so each holds half of one false alarm a year, tested once a
+# week (365.25 / 7 a year) on each of the 3 live streams.
+LEVEL = 0.5 / (365.25 / 7) / 3
 # rule → its PSI floor: the default 0.1, and a rule without a floor, judged by the level alone
 RULES = {"score-drift-weekly": 0.1, "score-drift-level-only": 0.0}
 # week → (Beta law of the scores, cases per day). Weeks 2 and 4 are too small to judge:
@@ -53,7 +58,7 @@ def _verdict(reference: np.ndarray, current: np.ndarray, min_psi: float) -> dict
     seen = []
     for edges in snapped_decile_edges(reference):
         value = psi_on(edges, reference, current)  # source: docs/methods.md §17.2 PSI with ½ per bin, numpy
-        # source: docs/methods.md §17.2, no-shift 99 % point χ²_{0.99,B−1}(1/n + 1/m), scipy.stats.chi2
+        # source: docs/methods.md §17.2, no-shift 1 − α point χ²_{1−α,B−1}(1/n + 1/m), scipy.stats.chi2
         null = float(stats.chi2.ppf(1 - LEVEL, edges.size)) * (1 / reference.size + 1 / current.size)
         seen.append((value > max(null, min_psi), value, null))
     assert len({s[0] for s in seen}) == 1, f"verdict depends on the snapping: {seen}"
@@ -111,6 +116,8 @@ def test_drift_rules_fire_on_a_shifted_week_against_the_size_aware_level_and_res
             assert ev["n"] == exp["n"]  # pandas row count
             assert abs(ev["statistic"] - exp["psi"]) <= 1e-9 * exp["psi"]  # numpy PSI (docs/methods.md §17.2)
             assert abs(ev["detail"]["null_level"] - exp["null"]) <= 1e-9 * exp["null"]  # scipy χ²
+            assert ev["level"] == pytest.approx(LEVEL, rel=1e-12)
+            assert ev["budget_share_per_year"] == pytest.approx(0.5)
             assert ev["detail"]["n_reference"] == reference.size
 
     events = db.scalar("SELECT count(*) FROM outbox_events")

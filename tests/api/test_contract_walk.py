@@ -53,7 +53,10 @@ MODEL_COUNT_KEYS = frozenset({"predictions", "outcomes", "labeled"})
 # Names the service stopped using. A key that is one or has one as a word (fired_at), or a string
 # value naming one, is an offender; "labelled" also inside longer keys and text (min_labelled,
 # "labelled predictions").
-OLD_NAMES = frozenset({"insufficient_data", "fired", "firings", "event_kinds", "event_type"})
+OLD_NAMES = frozenset({"insufficient_data", "fired", "firings", "event_kinds", "event_type",
+                       # retired with the one false-alarm budget per model (CHANGELOG)
+                       "expected_false_alarms_per_year", "budget_per_year", "max_unlabeled_share",
+                       "unlabeled_share", "outcomes_missing"})
 OLD_KEY_WORDS = frozenset({"fired", "firings"})
 OLD_WORDS = re.compile(r"\b(insufficient_data|firings|fired|event_kinds|event_type)\b|labelled")
 OLD_SYMBOL_KEYS = frozenset({"s", "h"})  # the chart's symbols, now cusum_statistic / control_limit

@@ -51,7 +51,7 @@ def test_weekly_rule_false_alarms_stay_within_its_level() -> None:
     total = sum(weekly_rule.false_alarms(lambda g, n: g.beta(2, 8, n), np.random.default_rng(seed),
                                          WEEKS_PER_SEED, WEEKLY_VOLUME) for seed in WEEKLY_SEEDS)
     weeks = len(WEEKLY_SEEDS) * WEEKS_PER_SEED
-    assert total <= stats.binom.ppf(0.999, weeks, weekly_rule.PARAMS.level), (total, weeks)
+    assert total <= stats.binom.ppf(0.999, weeks, weekly_rule.LEVEL), (total, weeks)
 
 
 def test_week_sums_give_sklearn_log_loss() -> None:

@@ -2,11 +2,12 @@
 
 Each simulated week of ``volume`` cases is judged by the service's own decision,
 ``alarms.kinds.excess_log_loss.excess_log_loss`` with the rule's default parameters
-(``ExcessLogLossParams``: level 0.01, minimum relative effect 0.05, 200 labeled,
-10 per class), on the week's exact sums (docs/methods.md §2): n, events, Σℓ, ΣH(p) and
-Σ p(1 − p) logit(p)², with ℓ the log-loss of a case and H(p) its entropy. No
-labeled reference: the week is compared with calibration, as for a model
-without one.
+(``ExcessLogLossParams``: minimum relative effect 0.05, 200 labeled, 10 per class) at
+the level the default budget gives it on one stream (``LEVEL``: its share of one false
+alarm a year, 2/9, over 365.25/7 weeks; docs/methods.md §18.5), on the week's sums as
+the service builds them from a summary (``stats.window_tests.log_loss_sums``, with its
+per-bin part, so the saddlepoint tail is used). No labeled reference: the week is
+compared with calibration, as for a model without one.
 
 Delay: the change happens at a uniformly random case of week 0 (the stream ran
 in control before it); the delay is the number of cases from the change to the
@@ -19,28 +20,31 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import numpy as np
-from scipy.special import logit
 
+from calibrant.alarms import budget
+from calibrant.alarms.kinds import DEFAULT_RULES
+from calibrant.alarms.kinds.base import EVALUATIONS_PER_YEAR
 from calibrant.alarms.kinds.excess_log_loss import ExcessLogLossParams, excess_log_loss
-from calibrant.stats.window_tests import LogLossSums
+from calibrant.stats.summary import Summary
+from calibrant.stats.window_tests import LogLossSums, log_loss_sums
 
 Sampler = Callable[[np.random.Generator, int], np.ndarray]
 Shift = Callable[[np.ndarray], np.ndarray]
 PARAMS = ExcessLogLossParams()
+_DEFAULTS = budget.split(1.0, [budget.RuleEntry(n, k.value, p, True) for n, k, p in DEFAULT_RULES])
+SHARE = _DEFAULTS.share_of("excess-log-loss-weekly") or 0.0
+LEVEL = budget.per_test_level(SHARE, EVALUATIONS_PER_YEAR["week"], 1)
 
 
 def week_sums(p: np.ndarray, y: np.ndarray) -> LogLossSums:
     """The labeled-row sums the rule reads from a week's summary (docs/methods.md §2)."""
-    loss = -(y * np.log(p) + (1 - y) * np.log1p(-p))
-    entropy = -(p * np.log(p) + (1 - p) * np.log1p(-p))
-    return LogLossSums(n=float(p.size), n1=float(y.sum()), sl=float(loss.sum()), sh=float(entropy.sum()),
-                       sv=float(np.sum(p * (1 - p) * logit(p) ** 2)))
+    return log_loss_sums(Summary.from_arrays(p, y.astype(np.int8)), False)
 
 
 def fires(p: np.ndarray, q: np.ndarray, rng: np.random.Generator) -> bool:
     """One week with true risks q judged by the rule (scores p)."""
     y = (rng.random(p.size) < q).astype(float)
-    return bool(excess_log_loss(week_sums(p, y), None, PARAMS).crossed)
+    return bool(excess_log_loss(week_sums(p, y), None, PARAMS, LEVEL).crossed)
 
 
 def false_alarms(sampler: Sampler, rng: np.random.Generator, weeks: int, volume: int) -> int:

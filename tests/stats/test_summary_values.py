@@ -225,10 +225,11 @@ def test_all_metrics_keys_and_intervals() -> None:
         "n_predictions", "n_labeled", "label_coverage", "mean_probability", "observed_rate",
         "oe_ratio", "log_loss", "log_loss_expected", "brier", "brier_reliability",
         "brier_resolution", "brier_uncertainty", "calibration_intercept", "calibration_slope",
-        "spiegelhalter_z", "ece", "auc", "psi"}
+        "calibration_slope_robust", "n_clipped", "n_confident_errors", "spiegelhalter_z", "ece",
+        "auc", "psi"}
     assert all(e.measured for e in out.values())
     for key in ("mean_probability", "observed_rate", "oe_ratio", "log_loss", "brier",
-                "calibration_intercept", "calibration_slope", "auc"):
+                "calibration_intercept", "calibration_slope", "calibration_slope_robust", "auc"):
         assert out[key].ci is not None
         assert out[key].ci[0] < out[key].value < out[key].ci[1]
     # the same rows in reverse order: no drift at all (source: definition of PSI, = 0 iff a = e)

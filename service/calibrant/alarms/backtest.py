@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from calibrant.alarms import charts, kinds, windows
+from calibrant.alarms import budget, charts, kinds, windows
 from calibrant.alarms.kinds import Kind
 from calibrant.alarms.kinds.calibration_chart import ChartParams
 from calibrant.alarms.records import segment_out, version_scope
@@ -49,7 +49,9 @@ def backtest(session: Session, model_name: str, rule_name: str, *, start: str | 
     if evaluation == "chart":
         crossings = replay_chart(session, model, rule, lo, min(hi, now), now)
     elif evaluation == "window":
-        report = windows.evaluate_rule(session, model, rule, now, start=lo, end=hi, dry_run=True)
+        share = budget.share_as_enabled(session, model, rule)
+        report = windows.evaluate_rule(session, model, rule, now, share=share, start=lo, end=hi,
+                                       dry_run=True)
         crossings = [{"crossed_at": d["period_end"], **version_scope(d["version"]),
                       "segment": segment_out(*d["segment"]), "summary": d["summary"],
                       "evidence": d["evidence"]}
@@ -79,7 +81,8 @@ def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetim
                     ys.append(float(cases.label[i]))
                     ts.append(cases.matured_at[i].timestamp())
                     ids.append(cases.case_id[i])
-    n_charts = max(charts.count_streams(session, charts.chart_rules(session, model)), len(per_stream) * 2, 1)
+    n_charts = max(len(alarm_repo.streams_of(session, rule.id)), len(per_stream), 1)
+    share = charts.rule_share(session, model, rule)
     crossings: list[dict[str, Any]] = []
     for (version, key, value), (ps, ys, ts, ids) in per_stream.items():
         stream = ChartStream(rule_id=rule.id, version=version, segment_key=key, segment_value=value,
@@ -89,7 +92,7 @@ def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetim
         pos = 0
         while pos < p.size and len(crossings) < MAX_CROSSINGS:
             crossing, _ = charts.feed(stream, rule, params, p=p[pos:], y=y[pos:], times=t[pos:],
-                                      case_ids=ids[pos:], n_charts=n_charts, now=now)
+                                      case_ids=ids[pos:], n_charts=n_charts, share=share, now=now)
             if crossing is None:
                 break
             crossings.append({"crossed_at": crossing.crossed_at, **version_scope(version),
@@ -98,6 +101,6 @@ def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetim
                               "evidence": crossing.evidence})
             used = ids.index(crossing.case_id, pos) + 1
             pos = used
-            charts.restart(stream, params, n_charts, now)
+            charts.restart(stream, params, n_charts, now, share)
     crossings.sort(key=lambda f: f["crossed_at"])
     return crossings

@@ -9,9 +9,10 @@ no label (no implicit negatives) is passed over and counted.
 
 Design (docs/methods.md §18): once a stream has ``min_design_cases`` labeled mature
 cases, h is designed by the Markov-chain designer from its recent risks for
-ARL0 = K × (cases per day) × 365.25 / budget, K the number of chart streams
-of the model (``arl0_for_false_alarm_budget``): the model's charts together
-then raise about ``budget`` false alarms a year. The chart starts with the
+ARL0 = K × (cases per day) × 365.25 / B_r, K the number of the rule's streams
+and B_r the rule's share of the model's false-alarm budget (``alarms.budget``,
+``arl0_for_false_alarm_budget``): the rule's charts together then raise about
+B_r false alarms a year. The chart starts with the
 cases after the design. The design is redone, keeping S, when the target
 ARL0 (volume, K) moves by more than ``redesign_rate_ratio`` or the mean risk by
 more than ``redesign_mean_change`` (relative), and at every reset.
@@ -23,13 +24,14 @@ chart at S = 0 (``restart_alarm_stream``).
 
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
 
-from calibrant.alarms import records
+from calibrant.alarms import budget, records
 from calibrant.alarms.kinds import calibration_chart, evaluated_as
 from calibrant.alarms.kinds.calibration_chart import ChartParams
 from calibrant.clock import rfc3339
@@ -96,12 +98,13 @@ def public_design(design: dict[str, Any] | None) -> dict[str, Any] | None:
     return {PUBLIC_DESIGN_NAMES.get(k, k): v for k, v in design.items()}
 
 
-def design_for(recent: np.ndarray, params: ChartParams, n_charts: int, at: datetime) -> dict[str, Any]:
-    """A design dict (``CusumDesign.to_dict`` plus the budget it serves), or one with ``error``."""
+def design_for(recent: np.ndarray, params: ChartParams, n_charts: int, at: datetime,
+               share: float) -> dict[str, Any]:
+    """A design dict (``CusumDesign.to_dict`` plus the budget share it serves), or one with ``error``."""
     risks, times = recent
     rate = cases_per_day(times)
-    target = arl0_for_false_alarm_budget(rate, n_charts, params.false_alarms_per_year)
-    base = {"cases_per_day": rate, "n_charts": n_charts, "budget_per_year": params.false_alarms_per_year,
+    target = arl0_for_false_alarm_budget(rate, n_charts, share)
+    base = {"cases_per_day": rate, "n_charts": n_charts, "budget_share_per_year": share,
             "designed_at": rfc3339(at), "mean_risk": float(risks.mean())}
     try:
         design = design_cusum(risks, target, params.odds_ratio, n_states=DESIGN_STATES,
@@ -112,9 +115,9 @@ def design_for(recent: np.ndarray, params: ChartParams, n_charts: int, at: datet
 
 
 def _material_change(design: dict[str, Any], recent: np.ndarray, params: ChartParams,
-                     n_charts: int) -> bool:
+                     n_charts: int, share: float) -> bool:
     risks, times = recent
-    target = arl0_for_false_alarm_budget(cases_per_day(times), n_charts, params.false_alarms_per_year)
+    target = arl0_for_false_alarm_budget(cases_per_day(times), n_charts, share)
     ratio = target / float(design["target_arl0"])
     mean_change = abs(float(risks.mean()) / float(design["mean_risk"]) - 1.0)
     return not (1 / params.redesign_rate_ratio <= ratio <= params.redesign_rate_ratio) or (
@@ -132,8 +135,12 @@ def _iso(ts: float) -> str:
 
 
 def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.ndarray, y: np.ndarray,
-         times: np.ndarray, case_ids: list[str], n_charts: int, now: datetime) -> tuple[Crossing | None, int]:
-    """Feed one stream its new labeled mature cases (in order). Returns (crossing, designs made)."""
+         times: np.ndarray, case_ids: list[str], n_charts: int, share: float,
+         now: datetime) -> tuple[Crossing | None, int]:
+    """Feed one stream its new labeled mature cases (in order). Returns (crossing, designs made).
+
+    ``n_charts``: the rule's streams now; ``share``: the rule's yearly share of the model's budget.
+    """
     recent = _unpack(stream.recent)
     designs = 0
     start = 0
@@ -142,7 +149,7 @@ def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.nda
         start = min(need, p.size)
         recent = np.hstack([recent, np.vstack([p[:start], times[:start]])])[:, -params.design_sample:]
         if recent.shape[1] >= params.min_design_cases:
-            stream.design = design_for(recent, params, n_charts, now)
+            stream.design = design_for(recent, params, n_charts, now, share)
             designs += 1
             if "error" not in stream.design:
                 stream.state = new_chart(stream.design["h"], params.odds_ratio).to_dict()
@@ -151,8 +158,8 @@ def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.nda
             return None, designs
     state = CusumState.from_dict(stream.state)
     if (not state.signalled and stream.design and "error" not in stream.design
-            and _material_change(stream.design, recent, params, n_charts)):
-        redesign = design_for(recent, params, n_charts, now)
+            and _material_change(stream.design, recent, params, n_charts, share)):
+        redesign = design_for(recent, params, n_charts, now, share)
         designs += 1
         if "error" not in redesign:
             stream.design = redesign
@@ -178,6 +185,7 @@ def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.nda
             "crossing_case": case_ids[start + i],
             "chart_path": chart_path,
             "design": public_design(stream.design),
+            "budget_share_per_year": share,
             "skipped_late": stream.skipped_late,
             "unlabeled_at_maturity": stream.unlabeled_at_maturity,
             "cases_since_reset": step.state.n_cases,
@@ -192,11 +200,11 @@ def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.nda
     return crossing, designs
 
 
-def restart(stream: ChartStream, params: ChartParams, n_charts: int, now: datetime) -> None:
+def restart(stream: ChartStream, params: ChartParams, n_charts: int, now: datetime, share: float) -> None:
     """S back to 0 after a person resolved the alarm; h redesigned for the current risk mix."""
     recent = _unpack(stream.recent)
     if recent.shape[1] >= params.min_design_cases:
-        redesign = design_for(recent, params, n_charts, now)
+        redesign = design_for(recent, params, n_charts, now, share)
         if "error" not in redesign:
             stream.design = redesign
     h = float(stream.design["h"]) if stream.design and "h" in stream.design else None
@@ -224,8 +232,11 @@ def chart_rules(session: Session, model: Model) -> list[tuple[AlarmRule, ChartPa
             if r.enabled and evaluated_as(r.kind, "chart")]
 
 
-def count_streams(session: Session, rules: list[tuple[AlarmRule, ChartParams]]) -> int:
-    return sum(len(alarm_repo.streams_of(session, r.id)) for r, _ in rules)
+def rule_share(session: Session, model: Model, rule: AlarmRule) -> float:
+    """The chart rule's yearly share of the model's budget (a disabled rule: as if it were enabled)."""
+    share = budget.share_as_enabled(session, model, rule)
+    assert share is not None  # a chart always makes a test
+    return share
 
 
 def restart_alarm_stream(session: Session, model: Model, alarm: Alarm,
@@ -239,12 +250,13 @@ def restart_alarm_stream(session: Session, model: Model, alarm: Alarm,
     if rule is None or not evaluated_as(rule.kind, "chart"):
         return None
     params = ChartParams.model_validate(rule.params)
-    n_charts = max(count_streams(session, chart_rules(session, model)), 1)
+    mine = alarm_repo.streams_of(session, rule.id)
+    share = rule_share(session, model, rule)
     restarted = None
-    for stream in alarm_repo.streams_of(session, rule.id):
+    for stream in mine:
         if (stream.version, stream.segment_key, stream.segment_value) == (
                 alarm.version, alarm.segment_key, alarm.segment_value):
-            restart(stream, params, n_charts, now)
+            restart(stream, params, max(len(mine), 1), now, share)
             restarted = {"control_limit": (stream.state or {}).get("h")}
     return restarted
 
@@ -253,13 +265,15 @@ def run(session: Session, model: Model, now: datetime) -> ChartReport:
     """Advance every stream of the model's enabled chart rules up to ``now``; open an alarm per crossing.
 
     Cases are read one maturity window at a time (``store.mature_cases``), so a new
-    rule on a long history holds one window's cases, not the history. The model's
-    chart count (the budget split) is the number of streams when a stream is designed.
+    rule on a long history holds one window's cases, not the history. A rule's
+    budget share is divided among its streams counted when a stream is designed.
     """
     report = ChartReport()
     rules = chart_rules(session, model)
     if not rules:
         return report
+    split = budget.of_model(session, model)
+    shares = {r.id: split.share_of(r.name) or 0.0 for r, _ in rules}
     conn = session.connection()
     book = SegmentBook(list(model.segment_keys or []), rollup_repo.segment_values(conn, model.id))
     streams: dict[tuple[int, StreamKey], ChartStream] = {
@@ -275,7 +289,7 @@ def run(session: Session, model: Model, now: datetime) -> ChartReport:
         after = min(marks) if has_all and marks and None not in marks else None  # type: ignore[type-var]
         _count_late(session, model, version, streams, book, now)
         for cases in mature_case_windows(conn, model, version, after=after, now=now):
-            _advance_window(session, version, cases, rules, streams, book, now, report)
+            _advance_window(session, version, cases, rules, streams, book, shares, now, report)
     session.flush()
     for crossing in report.crossings:
         report.opened += _open_alarm(session, model, crossing, now) is not None
@@ -294,8 +308,8 @@ def _open_alarm(session: Session, model: Model, crossing: Crossing, now: datetim
 
 def _advance_window(session: Session, version: str, cases: MatureCases,
                     rules: list[tuple[AlarmRule, ChartParams]],
-                    streams: dict[tuple[int, StreamKey], ChartStream], book: SegmentBook, now: datetime,
-                    report: ChartReport) -> None:
+                    streams: dict[tuple[int, StreamKey], ChartStream], book: SegmentBook,
+                    shares: dict[int, float], now: datetime, report: ChartReport) -> None:
     """Route one window's cases to their streams (creating new ones) and feed each stream."""
     routes: dict[StreamKey, list[int]] = {}
     for i, tags in enumerate(cases.tags):
@@ -312,7 +326,7 @@ def _advance_window(session: Session, version: str, cases: MatureCases,
                 session.add(stream)
                 streams[(rule.id, key)] = stream
             work.append((rule, params, stream, idx))
-    n_charts = len(streams)
+    per_rule = Counter(rule_id for rule_id, _ in streams)
     for rule, params, stream, idx in work:
         fresh = [i for i in idx if stream.watermark_at is None
                  or (cases.matured_at[i], cases.case_id[i]) > (stream.watermark_at, stream.watermark_case)]
@@ -331,7 +345,7 @@ def _advance_window(session: Session, version: str, cases: MatureCases,
         crossing, designs = feed(
             stream, rule, params, p=cases.probability[keep], y=cases.label[keep].astype(np.float64),
             times=_epoch([cases.matured_at[i] for i in keep]), case_ids=[cases.case_id[i] for i in keep],
-            n_charts=n_charts, now=now)
+            n_charts=per_rule[rule.id], share=shares[rule.id], now=now)
         report.designs += designs
         if crossing is not None:
             report.crossings.append(crossing)

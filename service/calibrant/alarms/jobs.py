@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import datetime
 
-from calibrant.alarms import charts, feeds, kinds, service, windows
+from calibrant.alarms import budget, charts, feeds, kinds, service, windows
 from calibrant.clock import Clock
 from calibrant.store import alarm_repo
 from calibrant.store.engine import make_session_factory
@@ -38,17 +38,18 @@ def evaluate_model(session: Session, model: Model, now: datetime, report: Evalua
     report.cases += done.cases
     report.designs += done.designs
     report.opened += done.opened
+    split = budget.of_model(session, model)
     for rule in alarm_repo.rules_of(session, model.id):
         if not rule.enabled:
             continue
         evaluation = kinds.spec(rule.kind).evaluation
         if evaluation == "window":
-            w = windows.evaluate_rule(session, model, rule, now)
+            w = windows.evaluate_rule(session, model, rule, now, share=split.share_of(rule.name))
             report.periods += w.periods
             report.opened += w.opened
             report.resolved += w.resolved
         elif evaluation == "feed":
-            f = feeds.evaluate_rule(session, model, rule, now)
+            f = feeds.evaluate_rule(session, model, rule, now, share=split.share_of(rule.name))
             report.opened += f.opened
             report.resolved += f.resolved
 

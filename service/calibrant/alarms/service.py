@@ -16,7 +16,7 @@ from typing import Any
 
 from pydantic import ValidationError
 
-from calibrant.alarms import charts, kinds, records
+from calibrant.alarms import budget, charts, kinds, records
 from calibrant.alarms.kinds import DEFAULT_RULES, Kind
 from calibrant.errors import Conflict, FieldError, InvalidInput, NotFound, field_errors, invalid
 from calibrant.models.service import require
@@ -50,14 +50,24 @@ def window_streams(session: Session, model: Model) -> int:
     return versions * (1 + values)
 
 
-def rule_out(session: Session, model: Model, rule: AlarmRule) -> dict[str, Any]:
+def rule_out(session: Session, model: Model, rule: AlarmRule, split: budget.Budget) -> dict[str, Any]:
     kind = kinds.spec(rule.kind)
     params = kind.params.model_validate(rule.params)
-    n_chart = max(charts.count_streams(session, charts.chart_rules(session, model)), 1)
+    share = split.shares.get(rule.name)
+    if kind.evaluation == "chart":
+        streams = len(alarm_repo.streams_of(session, rule.id))
+    else:
+        streams = window_streams(session, model)
     out: dict[str, Any] = {
         "name": rule.name, "kind": Kind(rule.kind).value, "enabled": rule.enabled,
         "is_default": rule.is_default, "params": params.model_dump(),
-        **kind.describe(params, streams=window_streams(session, model), chart_streams=n_chart),
+        **kind.describe(params),
+        "false_alarms": {
+            "share_per_year": None if share is None else share.share_per_year,
+            "basis": None if share is None else share.basis,
+            "statement": "disabled: no share of the budget" if not rule.enabled else budget.statement(
+                share, kind.evaluation, getattr(params, "granularity", None), streams),
+        },
         "created_at": rule.created_at, "updated_at": rule.updated_at,
     }
     if kind.evaluation == "chart":
@@ -80,10 +90,13 @@ def _stream_out(stream: Any) -> dict[str, Any]:
     }
 
 
-def list_rules(session: Session, model_name: str, now: datetime) -> list[dict[str, Any]]:
+def list_rules(session: Session, model_name: str, now: datetime) -> dict[str, Any]:
+    """The model's rules and how its one false-alarm budget is split over them."""
     model = require(session, model_name)
     ensure_defaults(session, model, now)
-    return [rule_out(session, model, r) for r in alarm_repo.rules_of(session, model.id)]
+    split = budget.of_model(session, model)
+    rules = [rule_out(session, model, r, split) for r in alarm_repo.rules_of(session, model.id)]
+    return {"rules": rules, "budget": split.to_dict()}
 
 
 def _rule(session: Session, model: Model, name: str) -> AlarmRule:
@@ -96,7 +109,7 @@ def _rule(session: Session, model: Model, name: str) -> AlarmRule:
 def get_rule(session: Session, model_name: str, name: str, now: datetime) -> dict[str, Any]:
     model = require(session, model_name)
     ensure_defaults(session, model, now)
-    return rule_out(session, model, _rule(session, model, name))
+    return rule_out(session, model, _rule(session, model, name), budget.of_model(session, model))
 
 
 def _validated(kind_text: Any, params: Any) -> tuple[Kind, dict[str, Any]]:
@@ -136,7 +149,7 @@ def create_rule(session: Session, model_name: str, body: dict[str, Any], *, acto
     audit.record(session, at=now, actor=actor, action="rule.created", target=f"{model.name}/{name}",
                  detail={"kind": kind.value, "params": params, "enabled": enabled}, model_id=model.id)
     session.flush()
-    return rule_out(session, model, rule)
+    return rule_out(session, model, rule, budget.of_model(session, model))
 
 
 def update_rule(session: Session, model_name: str, name: str, body: dict[str, Any], *, actor: str,
@@ -166,7 +179,7 @@ def update_rule(session: Session, model_name: str, name: str, body: dict[str, An
         audit.record(session, at=now, actor=actor, action="rule.changed", target=f"{model.name}/{name}",
                      detail={"from": before, "to": after}, model_id=model.id)
     session.flush()
-    return rule_out(session, model, rule)
+    return rule_out(session, model, rule, budget.of_model(session, model))
 
 
 def delete_rule(session: Session, model_name: str, name: str, *, actor: str, now: datetime) -> None:
@@ -209,6 +222,7 @@ def alarm_out(alarm: Alarm) -> dict[str, Any]:
         "segment": records.segment_out(alarm.segment_key, alarm.segment_value), "summary": alarm.summary,
         "crossed_at": alarm.crossed_at, "opened_at": alarm.opened_at, "resolved_at": alarm.resolved_at,
         "resolved_by": alarm.resolved_by, "resolution": alarm.resolution, "evidence": alarm.evidence,
+        "budget_share_per_year": (alarm.evidence or {}).get("budget_share_per_year"),
     }
 
 

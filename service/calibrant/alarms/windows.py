@@ -6,9 +6,15 @@ rollup. Each is evaluated once per (version, segment) stream — "all" and
 every declared segment value — and the rule remembers how far it got
 (``evaluated_through``), so backfilled history is evaluated the same way the
 first time the rule runs. The rule's kind judges the period (its spec's
-``decide``); a firing stream opens an alarm unless one is open; a stream
+``decide``) at the per-test level its share of the model's false-alarm budget
+gives: α = share / (periods a year) / (streams with a prediction in the period)
+(``alarms.budget``); a firing stream opens an alarm unless one is open; a stream
 judged within bounds resolves its open alarm; too little data leaves an open
 alarm as it is.
+
+Excess log-loss is judged on the period's mature rows and on the reference's
+mature rows, both counted the model's way: with implicit negatives a mature
+prediction without an outcome is a 0 in both.
 """
 
 from __future__ import annotations
@@ -18,14 +24,15 @@ from datetime import datetime, timedelta
 from typing import Any
 
 from calibrant.alarms import kinds, records
-from calibrant.alarms.kinds.base import Decision, WindowKind
+from calibrant.alarms.budget import per_test_level
+from calibrant.alarms.kinds.base import EVALUATIONS_PER_YEAR, Decision, WindowKind
 from calibrant.clock import rfc3339
 from calibrant.rollup import query
 from calibrant.rollup.periods import Granularity, Period, periods
-from calibrant.rollup.references import reference_summary
+from calibrant.rollup.references import reference_outcome_summary, reference_summary
 from calibrant.stats.result import Estimate
 from calibrant.stats.summary import Summary
-from calibrant.stats.window_tests import LogLossSums
+from calibrant.stats.window_tests import LogLossSums, log_loss_sums
 from calibrant.store import alarm_repo, rollup_repo
 from calibrant.store.alarm_tables import AlarmRule
 from calibrant.store.tables import Model
@@ -62,43 +69,65 @@ def segments_of(session: Session, model: Model) -> list[tuple[str, str]]:
     ]
 
 
-def log_loss_sums(summary: Summary, implicit_negatives: bool) -> LogLossSums:
-    v = summary.labeled(implicit_negatives)
-    return LogLossSums(n=v.total("all", "n"), n1=v.total("pos", "n"), sl=v.total("all", "sl"),
-                       sh=v.total("all", "sh"), sv=v.total("all", "sv"))
-
-
 class PeriodInputs:
     """One stream's period as a window kind reads it (``kinds.base.WindowInputs``), each part on demand."""
 
-    def __init__(self, model: Model, period: Period, days: query.DaySlices, reference: Summary | None):
+    def __init__(self, model: Model, period: Period, days: query.DaySlices, references: References):
         self._model = model
         self._period = period
         self._days = days
-        self._reference = reference
+        self._references = references
         self._metrics: dict[str, Estimate] | None = None
+        self._summary: Summary | None = None
+
+    def summary(self) -> Summary:
+        """The period's mature rows of this stream, merged once."""
+        if self._summary is None:
+            start, end = self._period.start, self._period.end
+            self._summary = Summary.merge_many([s for d, s in self._days.mature.items() if start <= d < end])
+        return self._summary
 
     def log_loss_sums(self) -> LogLossSums:
-        start, end = self._period.start, self._period.end
-        mature = Summary.merge_many([s for d, s in self._days.mature.items() if start <= d < end])
-        return log_loss_sums(mature, bool(self._model.implicit_negatives))
+        return log_loss_sums(self.summary(), bool(self._model.implicit_negatives))
 
     def reference_log_loss_sums(self) -> LogLossSums | None:
-        if self._reference is None:
-            return None
-        sums = log_loss_sums(self._reference, False)
-        return sums if sums.n > 0 else None
+        return self._references.log_loss_sums
 
     def metric(self, key: str) -> Estimate:
         if self._metrics is None:
-            self._metrics = query.period_metrics(self._period, self._days, self._model, self._reference)
+            self._metrics = query.period_metrics(self._period, self._days, self._model,
+                                                 self._references.scores)
         return self._metrics[key]
 
 
-def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime, *,
+@dataclass(frozen=True, slots=True)
+class References:
+    """The reference twice: every prediction (for score drift), and its mature rows as log-loss sums."""
+
+    scores: Summary | None
+    log_loss_sums: LogLossSums | None
+
+
+def references_of(session: Session, model: Model, now: datetime) -> References:
+    conn = session.connection()
+    outcomes = reference_outcome_summary(conn, model, query.maturity_boundary(model, now))
+    sums = None
+    if outcomes is not None:
+        traffic = (model.reference or {}).get("kind") == "traffic"
+        sums = log_loss_sums(outcomes, bool(model.implicit_negatives) and traffic)
+        sums = sums if sums.n > 0 else None
+    return References(scores=reference_summary(conn, model), log_loss_sums=sums)
+
+
+
+def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime, *, share: float | None,
                   start: datetime | None = None, end: datetime | None = None,
                   dry_run: bool = False) -> WindowReport:
-    """Evaluate the rule on every ready period not yet evaluated (or, for a backtest, in [start, end))."""
+    """Evaluate the rule on every ready period not yet evaluated (or, for a backtest, in [start, end)).
+
+    ``share``: the rule's yearly share of the model's false-alarm budget (``alarms.budget.split``);
+    None for a rule outside the budget (a hand-set threshold, which makes no test).
+    """
     report = WindowReport()
     kind = kinds.spec(rule.kind)
     if not isinstance(kind, WindowKind):
@@ -115,22 +144,27 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
         spans = [p for p in spans if p.start >= first]
     if not dry_run:
         spans = spans[:MAX_PERIODS_PER_RUN]
-    reference = reference_summary(conn, model)
+    references = references_of(session, model, now)
     streams = segments_of(session, model)
     versions = alarm_repo.versions_of(conn, model.id)
-    per_year = kind.describe(params, streams=len(versions) * len(streams),
-                             chart_streams=1)["false_alarms"]["per_year"]
+    tests_per_year = EVALUATIONS_PER_YEAR[grain.value]
     for period in spans:
         if not ready(model, period, now) or alarm_repo.has_dirty_before(conn, model.id, period.end):
             break
         boundary = query.maturity_boundary(model, now)
+        live: list[tuple[str, tuple[str, str], PeriodInputs]] = []
         for version in versions:
             for segment in streams:
                 days = query.load_days(conn, model, period.start, period.end, segment=segment,
                                        version=version, boundary=boundary)
-                verdict = kind.decide(params, PeriodInputs(model, period, days, reference))
-                _apply(session, model, rule, version, segment, period, verdict, per_year, now,
-                       report, dry_run)
+                inputs = PeriodInputs(model, period, days, references)
+                if not inputs.summary().is_empty():
+                    live.append((version, segment, inputs))
+        level = None if share is None else per_test_level(share, tests_per_year, len(live))
+        for version, segment, inputs in live:
+            verdict = kind.decide(params, inputs, 0.0 if level is None else level)
+            _apply(session, model, rule, version, segment, period, verdict, (share, level), now,
+                   report, dry_run)
         report.periods += 1
         if not dry_run:
             rule.evaluated_through = period.end
@@ -138,28 +172,30 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
     return report
 
 
-def _evidence(verdict: Decision, period: Period, grain: str, per_year: float | None) -> dict[str, Any]:
+def _evidence(verdict: Decision, period: Period, grain: str,
+              budget: tuple[float | None, float | None]) -> dict[str, Any]:
+    share, level = budget
     return {
         "statistic": verdict.statistic, "interval": list(verdict.interval) if verdict.interval else None,
         "n": verdict.n, "period_start": rfc3339(period.start), "period_end": rfc3339(period.end),
-        "granularity": grain, "detail": verdict.detail, "expected_false_alarms_per_year": per_year,
+        "granularity": grain, "detail": verdict.detail, "budget_share_per_year": share, "level": level,
     }
 
 
 def _apply(session: Session, model: Model, rule: AlarmRule, version: str, segment: tuple[str, str],
-           period: Period, verdict: Decision, per_year: float | None, now: datetime,
+           period: Period, verdict: Decision, budget: tuple[float | None, float | None], now: datetime,
            report: WindowReport, dry_run: bool) -> None:
     grain = rule.params.get("granularity", "week")
     if dry_run:
         if verdict.crossed:
             report.decisions.append({"period_start": period.start, "period_end": period.end,
                                      "version": version, "segment": segment, "summary": verdict.summary,
-                                     "evidence": _evidence(verdict, period, grain, per_year)})
+                                     "evidence": _evidence(verdict, period, grain, budget)})
         return
     current = records.open_alarm_of(session, rule, version, segment)
     if verdict.crossed and current is None:
         records.open_alarm(session, model, rule, version=version, segment=segment, crossed_at=period.end,
-                           evidence=_evidence(verdict, period, grain, per_year),
+                           evidence=_evidence(verdict, period, grain, budget),
                            summary=f"{rule.name}: {verdict.summary}", now=now)
         report.opened += 1
     elif verdict.crossed is False and current is not None:

@@ -6,11 +6,11 @@ from typing import Any, ClassVar, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from calibrant.alarms.kinds import Kind
+from calibrant.alarms.budget import Basis as BudgetBasis
+from calibrant.alarms.kinds import KindName
 from calibrant.api.instant import Instant
 from calibrant.api.sparse import SparseModel
 
-RuleKind = Literal[tuple(k.value for k in Kind)]
 VersionScope = Literal["version", "all_versions"]
 
 
@@ -19,15 +19,31 @@ class Segment(BaseModel):
     value: str = Field(description="The tag value of that key.")
 
 
-class FalseAlarmStatement(SparseModel):
-    """What the rule promises about false alarms; ``level`` is absent for a chart (its budget is per year)."""
+class FalseAlarmStatement(BaseModel):
+    """The rule's part of the model's one false-alarm budget."""
 
-    omitted_when_absent: ClassVar[frozenset[str]] = frozenset({"level"})
-
-    per_year: float | None = Field(description="Expected false alarms a year; null when none can be stated.")
-    scope: Literal["model", "rule"] = Field(description="model: one budget shared by every chart stream.")
+    share_per_year: float | None = Field(
+        description="Expected false alarms a year this rule may raise; null: outside the budget or disabled."
+    )
+    basis: BudgetBasis | None = Field(
+        description="How the share is kept: markov_design (chart limits), per_test_level (each test's "
+                    "level), simulation; null: outside the budget."
+    )
     statement: str = Field(description="The promise in words, with how it is kept.")
-    level: float | None = Field(None, description="Test level per evaluation; null: the rule has no test.")
+
+
+class RuleShareOut(BaseModel):
+    rule: str
+    share_per_year: float
+    basis: BudgetBasis
+
+
+class BudgetOut(BaseModel):
+    """One false-alarm budget per model, split across its enabled rules that make a test."""
+
+    per_year: float = Field(description="The model's false_alarms_per_year setting.")
+    rules: list[RuleShareOut] = Field(description="Each budgeted rule's share; the shares sum to per_year.")
+    outside: list[str] = Field(description="Enabled rules outside the budget (hand-set thresholds).")
 
 
 class ChartStreamOut(BaseModel):
@@ -50,7 +66,7 @@ class RuleOut(SparseModel):
     omitted_when_absent: ClassVar[frozenset[str]] = frozenset({"streams", "evaluated_through"})
 
     name: str
-    kind: RuleKind
+    kind: KindName
     enabled: bool
     is_default: bool = Field(description="Created by Calibrant for every model; may be changed or deleted.")
     params: dict[str, Any] = Field(description="The kind's parameters, defaults filled in.")
@@ -69,6 +85,7 @@ class RuleList(BaseModel):
     model: str
     rules: list[RuleOut]
     count: int
+    budget: BudgetOut
 
 
 class AlarmEvidence(BaseModel):
@@ -105,6 +122,10 @@ class AlarmOut(BaseModel):
     resolved_by: str | None = Field(description="'system', or the actor who resolved it.")
     resolution: AlarmResolution | None
     evidence: AlarmEvidence
+    budget_share_per_year: float | None = Field(
+        description="The raising rule's yearly share of the model's false-alarm budget when it crossed; "
+                    "null: a rule outside the budget, or an alarm raised before budgets existed."
+    )
 
 
 class AlarmList(BaseModel):
@@ -127,7 +148,7 @@ class BacktestCrossing(BaseModel):
 class BacktestOut(BaseModel):
     model: str
     rule: str
-    kind: RuleKind
+    kind: KindName
     start: Instant
     end: Instant
     crossing_count: int = Field(description="Every crossing found, also beyond those listed.")

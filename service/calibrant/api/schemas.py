@@ -93,6 +93,9 @@ class ModelOut(BaseModel):
     implicit_negatives: bool
     segment_keys: list[str]
     reference: ReferenceOut | None = Field(description="What score drift is judged against; null: none.")
+    false_alarms_per_year: float = Field(
+        description="The one false-alarm budget all of the model's rules share (expected a year)."
+    )
     created_at: Instant
     updated_at: Instant
     counts: ModelCountsOut | None = None

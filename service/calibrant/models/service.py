@@ -26,6 +26,7 @@ SETTING_NAMES = (
     "implicit_negatives",
     "segment_keys",
     "reference",
+    "false_alarms_per_year",
 )
 
 

@@ -57,6 +57,11 @@ class ModelSettingsPatch(BaseModel):
         None, max_length=MAX_SEGMENT_KEYS, description="Tag keys to keep summaries for (<= 4)."
     )
     reference: TrafficReference | None = None
+    false_alarms_per_year: float | None = Field(
+        None, gt=0, le=365,
+        description="Expected false alarms a year of all the model's rules together, when it is "
+                    "well calibrated and its feeds are healthy (default 1).",
+    )
 
     # A field validator (not a model validator) so the 422 names segment_keys, not the body.
     @field_validator("segment_keys")
@@ -82,8 +87,10 @@ def merged(current: dict[str, Any], patch: ModelSettingsPatch, fields_set: set[s
         value = getattr(patch, name)
         if name == "reference" and value is not None:
             value = value.model_dump(mode="json")
-        if value is None and name in {"description", "outcome_lag_days", "implicit_negatives"}:
-            value = {"description": "", "outcome_lag_days": 0, "implicit_negatives": False}[name]
+        if value is None and name in {"description", "outcome_lag_days", "implicit_negatives",
+                                      "false_alarms_per_year"}:
+            value = {"description": "", "outcome_lag_days": 0, "implicit_negatives": False,
+                     "false_alarms_per_year": 1.0}[name]
         if value is None and name == "segment_keys":
             value = []
         out[name] = value

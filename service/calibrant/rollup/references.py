@@ -26,12 +26,35 @@ MAX_REFERENCE_ROWS = 1_000_000
 
 
 def reference_summary(conn: Connection, model: Any) -> Summary | None:
+    """Every prediction of the reference, labeled or not: what score drift compares with."""
     ref = model.reference
     if not ref:
         return None
     if ref.get("kind") == "uploaded":
         payload = rollup_repo.reference_sample(conn, model.id)
         return None if payload is None else Summary.from_bytes(payload)
+    return _traffic(conn, model, boundary=None)
+
+
+def reference_outcome_summary(conn: Connection, model: Any, boundary: datetime | None) -> Summary | None:
+    """The reference's mature predictions, for the rules that judge outcomes (excess log-loss).
+
+    A traffic reference keeps only its mature hours (the boundary of
+    ``rollup.query.maturity_boundary``): an immature day would count outcomes
+    not yet arrived. Whether an unlabeled mature row is an implicit 0 is the
+    reader's choice (``Summary.labeled``), the same as for the periods judged.
+    An uploaded set is returned whole: its labels are final.
+    """
+    ref = model.reference
+    if not ref:
+        return None
+    if ref.get("kind") == "uploaded":
+        return reference_summary(conn, model)
+    return _traffic(conn, model, boundary=boundary)
+
+
+def _traffic(conn: Connection, model: Any, *, boundary: datetime | None) -> Summary | None:
+    ref = model.reference
     days = load_days(
         conn,
         model,
@@ -39,7 +62,7 @@ def reference_summary(conn: Connection, model: Any) -> Summary | None:
         datetime.fromisoformat(ref["end"]),
         segment=(ALL_SEGMENT, ALL_SEGMENT),
         version=ref.get("version"),
-        boundary=None,  # every prediction of the range, labeled or not: drift needs no label
+        boundary=boundary,
     )
     merged = Summary.merge_many(list(days.mature.values()))
     return None if merged.is_empty() else merged
@@ -82,6 +105,7 @@ def upload(session: Session, model_name: str, body: bytes, *, clock: Clock, acto
         errors.append(FieldError(None, "description", "must be a string of at most 500 characters"))
     if errors:
         raise InvalidInput("the reference set is invalid; nothing was stored", errors)
+    assert p is not None  # _numbers gives None only after recording an error
     state = np.full(p.size, -1, dtype=np.int8) if y is None else y.astype(np.int8)
     summary = Summary.from_arrays(p, state)
     now = clock.now()

@@ -21,6 +21,7 @@ from calibrant.stats._validation import as_labeled, check_n_bins
 from calibrant.stats.result import Estimate, Status, estimate, finite_or_none, missing
 
 __all__ = [
+    "P_VALUE_MIN_EXPECTED",
     "HosmerLemeshow",
     "hosmer_lemeshow",
     "hosmer_lemeshow_from_groups",
@@ -138,14 +139,25 @@ def spiegelhalter_z(
 
 
 # ----------------------------------------------------------------------------- Hosmer–Lemeshow
+#: A p-value is given only when every group has at least this many expected events and
+#: expected non-events (the rule of 5 for χ² tests, common practice). In
+#: tests/bench/hosmer_lemeshow_null.py χ²_g held its level down to a smallest group of
+#: 4.7 expected events; at 0.05–0.8 it rejected 5.9–11.7 % at a stated 5 %.
+P_VALUE_MIN_EXPECTED = 5.0
+
+
 @dataclass(frozen=True, slots=True)
 class HosmerLemeshow:
-    """Hosmer–Lemeshow statistic with both reference distributions, labeled.
+    """Hosmer–Lemeshow statistic Ĉ and its p-value against χ²_g.
 
     ``statistic`` is for context and comparability with clinical reporting, not
-    for alarms. ``p_value_development`` uses χ²_{g−2} (model fitted on these
-    data); ``p_value_external`` uses χ²_g (predictions from a model developed
-    elsewhere, the monitoring setting) [M: the choice is debated].
+    for alarms. ``p_value`` = P(χ²_g ≥ Ĉ) with ``df`` = g, the number of
+    non-empty groups: the predictions come from a model fitted elsewhere, so no
+    parameter is estimated on the monitored data and the g − 2 of the
+    development setting does not apply (it rejected 11–17 % of calibrated
+    windows at a stated 5 %; docs/methods.md §11). ``p_value`` is None, with
+    ``reason`` saying so, when a group has fewer than
+    :data:`P_VALUE_MIN_EXPECTED` expected events or non-events.
     """
 
     status: Status
@@ -153,10 +165,8 @@ class HosmerLemeshow:
     n: float
     statistic: float | None = None
     n_groups: int = 0
-    df_development: int = 0
-    p_value_development: float | None = None
-    df_external: int = 0
-    p_value_external: float | None = None
+    df: int = 0
+    p_value: float | None = None
     min_expected: float | None = None
     table: tuple[tuple[float, float, float], ...] = ()  # (n_j, O_j, E_j)
 
@@ -170,8 +180,20 @@ def hosmer_lemeshow_from_groups(
 ) -> HosmerLemeshow:
     """Ĉ = Σ_j (O_j − E_j)² / (n_j p̄_j(1 − p̄_j)), p̄_j = E_j/n_j, from group totals.
 
+    p-value: P(χ²_g ≥ Ĉ), g = number of non-empty groups. Why g degrees of
+    freedom [D]: the groups depend on the predictions only, so given them the
+    O_j are independent with mean E_j and variance
+    V_j = Σ_{i∈j} p_i(1 − p_i) = n_j p̄_j(1 − p̄_j) − Σ_{i∈j} (p_i − p̄_j)²,
+    and under calibration Ĉ ≈ Σ_j λ_j χ²_1 with λ_j = V_j / (n_j p̄_j(1 − p̄_j)) ≤ 1:
+    χ²_g or slightly conservative, once the group counts are large enough for
+    the normal approximation (:data:`P_VALUE_MIN_EXPECTED`). Hosmer, Lemeshow &
+    Sturdivant (2013), Applied Logistic Regression, 3rd ed., section on external
+    validation, use g degrees of freedom when the model was not fitted to the
+    data [M: cited from memory, not checked against the book].
+
     Empty groups drop out. ``min_expected``: floor on min_j min(E_j, n_j − E_j)
-    (docs/methods.md §20: ≥ 10 expected per group), else too_few_cases.
+    (docs/methods.md §20: ≥ 10 expected per group), else too_few_cases; below
+    :data:`P_VALUE_MIN_EXPECTED` the statistic is given without a p-value.
     """
     n_j, o_j, e_j = (np.asarray(a, dtype=np.float64) for a in (n_j, o_j, e_j))
     keep = n_j > 0
@@ -199,14 +221,20 @@ def hosmer_lemeshow_from_groups(
     if finite_or_none(c) is None:
         return HosmerLemeshow(Status.NO_VALUE, "not finite for this input", n, n_groups=g,
                               table=table)
+    if min_exp < P_VALUE_MIN_EXPECTED:
+        return HosmerLemeshow(
+            Status.MEASURED,
+            f"no p-value: a group has fewer than {P_VALUE_MIN_EXPECTED:g} expected events or "
+            "non-events, where the χ² reference does not hold its level",
+            n, statistic=c, n_groups=g, df=g, min_expected=min_exp, table=table)
     return HosmerLemeshow(
-        Status.MEASURED, "", n, statistic=c, n_groups=g,
-        df_development=g - 2, p_value_development=float(stats.chi2.sf(c, g - 2)),
-        df_external=g, p_value_external=float(stats.chi2.sf(c, g)),
-        min_expected=min_exp, table=table)
+        Status.MEASURED, "", n, statistic=c, n_groups=g, df=g,
+        p_value=float(stats.chi2.sf(c, g)), min_expected=min_exp, table=table)
 
 
-def _equal_count_groups(p: np.ndarray, w: np.ndarray, y: np.ndarray, g: int):
+def _equal_count_groups(
+    p: np.ndarray, w: np.ndarray, y: np.ndarray, g: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Group totals of ``np.array_split`` of the sorted (weight-repeated) data into g groups.
 
     A row of weight w occupies positions [c − w, c) of the repeated sorted data
@@ -253,11 +281,13 @@ def hosmer_lemeshow(
     groups where needed, so integer weights = repeated rows);
     ``grouping="quantile"``: groups between (weighted) quantiles of p,
     right-closed. Software differs here; with continuous p they agree.
-    Both df are reported and labeled (see :class:`HosmerLemeshow`).
+    p-value: P(χ²_g ≥ Ĉ), g = non-empty groups (the model was fitted
+    elsewhere; see :func:`hosmer_lemeshow_from_groups` for why g and not g − 2).
 
     Edge cases: fewer than 3 non-empty groups → too_few_cases; a group
     with mean risk 0 or 1 → no_value; a group below ``min_expected`` expected
-    events or non-events → too_few_cases (pass 0 to compute anyway). It
+    events or non-events → too_few_cases (pass 0 to compute anyway; below
+    :data:`P_VALUE_MIN_EXPECTED` the statistic comes without a p-value). It
     rejects for negligible miscalibration at large n and has little power at
     small n; Van Calster et al. (2019) advise against it.
 

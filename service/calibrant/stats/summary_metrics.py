@@ -25,6 +25,7 @@ from calibrant.stats.calibration import (
     spiegelhalter_from_sums,
     spiegelhalter_sums_from_power_sums,
 )
+from calibrant.stats.recalibration import robust_calibration_slope_from_logits
 from calibrant.stats.reliability import wilson_interval
 from calibrant.stats.result import Estimate, Status, estimate, missing
 from calibrant.stats.scoring import (
@@ -44,6 +45,7 @@ __all__ = [
     "all_metrics",
     "brier",
     "brier_skill_score",
+    "calibration_slope_robust",
     "expected_brier",
     "expected_log_loss",
     "label_coverage",
@@ -51,6 +53,8 @@ __all__ = [
     "log_loss_calibration_z",
     "log_loss_skill",
     "mean_probability",
+    "n_clipped",
+    "n_confident_errors",
     "n_labeled",
     "n_predictions",
     "observed_expected",
@@ -145,6 +149,26 @@ def observed_expected(data: Summary | LabeledBins, *, implicit_negatives: bool =
     return observed_expected_from_sums(t.n, t.n1, t["all", "s1"], t["all", "s1"] - t["all", "s2"])
 
 
+def n_clipped(data: Summary | LabeledBins, *, implicit_negatives: bool = False) -> Estimate:
+    """Labeled cases whose p was clipped to [ε, 1 − ε] (p < ε or p > 1 − ε; docs/methods.md §1.2).
+
+    Counted over the rows the label metrics use: with ``implicit_negatives``
+    unlabeled rows count too, as negatives. Exact (a summary field).
+    """
+    t = _Totals(view(data, implicit_negatives))
+    return estimate(t["all", "n_clip"], n=t.n)
+
+
+def n_confident_errors(data: Summary | LabeledBins, *, implicit_negatives: bool = False
+                       ) -> Estimate:
+    """Labeled cases with y = 1 and p < 10⁻⁶, or y = 0 and p > 1 − 10⁻⁶ (docs/methods.md §1.2).
+
+    Same rows as :func:`n_clipped`; an implicit negative counts as y = 0. Exact.
+    """
+    t = _Totals(view(data, implicit_negatives))
+    return estimate(t["all", "n_conf"], n=t.n)
+
+
 # ----------------------------------------------------------------------------- log-loss
 def log_loss(data: Summary | LabeledBins, *, implicit_negatives: bool = False) -> Estimate:
     """Mean clipped log-loss Sl/n, SE sqrt((Sll − Sl²/n)/(n − 1)/n), normal 95 % interval.
@@ -231,6 +255,27 @@ def spiegelhalter_z(data: Summary | LabeledBins, *, implicit_negatives: bool = F
     return spiegelhalter_from_sums(num, var, n=t.n, scale=t["all", "s1"] - t["all", "s2"])
 
 
+# ----------------------------------------------------------------------------- robust slope
+def calibration_slope_robust(data: Summary | LabeledBins, *, implicit_negatives: bool = False
+                             ) -> Estimate:
+    """Calibration slope with the logits winsorised at the window's 2.5th and 97.5th percentiles.
+
+    :func:`calibrant.stats.recalibration.robust_calibration_slope` on the rows
+    the plain summary slope is fitted to: one row per (fine bin, class) at that
+    class's mean logit, its count as frequency weight. The percentiles are those
+    of these rows, i.e. of the window with each case moved to its class's mean
+    logit in its fine bin (within one bin, 0.05 on the logit scale, of the
+    percentiles of the cases themselves). docs/methods.md §9.6.
+    """
+    v = view(data, implicit_negatives)
+    # summary_binned's per-(bin, class) rows: the plain slope's own design, so the two differ only by the clip
+    y, x, w = binned._bin_rows(v)
+    res = robust_calibration_slope_from_logits(y, x, sample_weight=w)
+    if res.measured:
+        res.extra["approximation"] = "per-class bin-mean logits (docs/methods.md §9.4, from the summary)"
+    return res
+
+
 # ----------------------------------------------------------------------------- everything
 def all_metrics(
     summary: Summary,
@@ -269,6 +314,9 @@ def all_metrics(
                                                      n=decomposition.n))
     out["calibration_intercept"] = binned.calibration_intercept(v)
     out["calibration_slope"] = recal.slope
+    out["calibration_slope_robust"] = calibration_slope_robust(v)
+    out["n_clipped"] = n_clipped(v)
+    out["n_confident_errors"] = n_confident_errors(v)
     out["spiegelhalter_z"] = spiegelhalter_z(v)
     out["ece"] = binned.ece(v, n_bins=n_bins)
     out["auc"] = binned.auc(v)

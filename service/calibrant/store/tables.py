@@ -54,6 +54,8 @@ class Model(Base):
     implicit_negatives: Mapped[bool] = mapped_column(Boolean, default=False)
     segment_keys: Mapped[list[str]] = mapped_column(JSON, default=list)
     reference: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
+    # One false-alarm budget for all of the model's rules (alarms.budget).
+    false_alarms_per_year: Mapped[float] = mapped_column(Double, default=1.0)
     # Bumped whenever a setting that changes summaries changes (keys, horizon,
     # lag, implicit negatives), so the rollup knows to rebuild.
     settings_generation: Mapped[int] = mapped_column(Integer, default=1)

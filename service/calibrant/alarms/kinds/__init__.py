@@ -5,18 +5,19 @@ about itself, its decision) and is named here once. Everything else (the
 evaluations, the rule use cases, backtests, the API) finds a kind through
 ``spec``; adding a kind touches its module and this registry only.
 
-Expected false alarms per year of a window rule, stated in the API, is
-level × evaluations per year × streams (versions × segments): each period's
-test is made once, at its stated level, on each stream (docs/architecture.md, alarms).
+Every rule that makes a statistical test shares the model's one false-alarm
+budget (``alarms.budget``); the weights of the default rules below are the
+kinds' defaults (``budget_weight``).
 """
 
 from __future__ import annotations
 
 from enum import StrEnum
-from typing import Any
+from typing import Any, Literal, get_args
 
 from calibrant.alarms.kinds import (
     calibration_chart,
+    calibration_slope,
     excess_log_loss,
     metric_threshold,
     score_drift,
@@ -29,14 +30,25 @@ from calibrant.stats.cusum import LOWER_ODDS_RATIO, UPPER_ODDS_RATIO
 class Kind(StrEnum):
     CHART = "calibration_chart"
     EXCESS_LOG_LOSS = "excess_log_loss"
+    SLOPE = "calibration_slope"
     THRESHOLD = "metric_threshold"
     DRIFT = "score_drift"
     STARVATION = "starvation"
 
 
+# The values of Kind as a type, for schemas; importing fails if the two ever list different names.
+KindName = Literal[
+    "calibration_chart", "excess_log_loss", "calibration_slope", "metric_threshold", "score_drift",
+    "starvation",
+]
+if tuple(k.value for k in Kind) != get_args(KindName):
+    raise RuntimeError("calibrant.alarms.kinds: KindName and Kind list different names")
+
+
 KINDS: dict[Kind, KindSpec] = {
     Kind.CHART: calibration_chart.SPEC,
     Kind.EXCESS_LOG_LOSS: excess_log_loss.SPEC,
+    Kind.SLOPE: calibration_slope.SPEC,
     Kind.THRESHOLD: metric_threshold.SPEC,
     Kind.DRIFT: score_drift.SPEC,
     Kind.STARVATION: starvation.SPEC,
@@ -46,8 +58,7 @@ DEFAULT_RULES: tuple[tuple[str, Kind, dict[str, Any]], ...] = (
     ("calibration-chart-upper", Kind.CHART, {"odds_ratio": UPPER_ODDS_RATIO}),
     ("calibration-chart-lower", Kind.CHART, {"odds_ratio": LOWER_ODDS_RATIO}),
     ("excess-log-loss-weekly", Kind.EXCESS_LOG_LOSS, {}),
-    ("calibration-slope-weekly", Kind.THRESHOLD,
-     {"metric": "calibration_slope", "lower": 0.8, "upper": 1.2, "interval_excludes": 1.0, "min_n": 200}),
+    ("calibration-slope-weekly", Kind.SLOPE, {}),
     ("score-drift-weekly", Kind.DRIFT, {}),
     ("feed-starvation", Kind.STARVATION, {}),
 )

@@ -47,11 +47,6 @@ def whole(count: float) -> int:
     return round(count)
 
 
-def window_false_alarms_per_year(level: float, granularity: str, streams: int) -> float:
-    """level × evaluations per year × streams: each period's test is made once, at its level, per stream."""
-    return level * EVALUATIONS_PER_YEAR[granularity] * max(streams, 1)
-
-
 class WindowInputs(Protocol):
     """One stream's closed, mature period, as a window kind reads it (computed on demand)."""
 
@@ -69,27 +64,53 @@ class WindowInputs(Protocol):
 
 
 @dataclass(frozen=True, slots=True)
+class LabelCounts:
+    """Mature predictions of a window, and how many of them have an outcome."""
+
+    mature: int
+    labeled: int
+
+    @property
+    def rate(self) -> float:
+        return self.labeled / self.mature if self.mature else 0.0
+
+
+@dataclass(frozen=True, slots=True)
 class FeedInputs:
-    """The feeds of a model now: hours since its last prediction (None: never), and the mature window."""
+    """The feeds of a model now, as a feed kind reads them (built by ``alarms.feeds``).
+
+    ``silence_hours``: hours since the newest prediction (None: never one).
+    ``recent`` / ``history``: the two mature windows; None when they were not
+    counted (implicit negatives, or no outcome horizon).
+    """
 
     silence_hours: float | None
-    mature: float
-    unlabeled: float
+    implicit_negatives: bool
+    has_horizon: bool
+    recent: LabelCounts | None
+    history: LabelCounts | None
 
 
 class Describe(Protocol):
-    """What a rule detects, the data it needs and its false-alarm statement, for the API."""
+    """What a rule detects and the data it needs, for the API (its false-alarm share is the budget's)."""
 
-    def __call__(self, params: Any, *, streams: int, chart_streams: int) -> dict[str, Any]: ...
+    def __call__(self, params: Any) -> dict[str, str]: ...
+
+
+def always(params: Any) -> bool:
+    """``in_budget`` of a kind whose decision is always a test (its false alarms are in the budget)."""
+    return True
 
 
 @dataclass(frozen=True, slots=True)
 class KindSpec:
-    """What the registry holds for a kind: its parameters model and its self-description."""
+    """What the registry holds for a kind: its parameters, its self-description, and whether a rule
+    with given parameters makes a test whose false alarms count against the model's budget."""
 
     evaluation: ClassVar[Evaluation]
     params: type[Params]
     describe: Describe
+    in_budget: Callable[[Any], bool]
 
 
 @dataclass(frozen=True, slots=True)
@@ -102,15 +123,15 @@ class ChartKind(KindSpec):
 
 @dataclass(frozen=True, slots=True)
 class WindowKind(KindSpec):
-    """``decide`` judges one stream's closed, mature period."""
+    """``decide(params, period, level)`` judges one stream's closed, mature period at a per-test level."""
 
     evaluation: ClassVar[Evaluation] = "window"
-    decide: Callable[[Any, WindowInputs], Decision]
+    decide: Callable[[Any, WindowInputs, float], Decision]
 
 
 @dataclass(frozen=True, slots=True)
 class FeedKind(KindSpec):
-    """``decide`` judges the model's feeds now."""
+    """``decide(params, feeds, level)`` judges the model's feeds now at a per-test level."""
 
     evaluation: ClassVar[Evaluation] = "feed"
-    decide: Callable[[Any, FeedInputs], Decision]
+    decide: Callable[[Any, FeedInputs, float], Decision]

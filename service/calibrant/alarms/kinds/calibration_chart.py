@@ -7,12 +7,10 @@ are in ``stats.cusum`` and ``stats.cusum_design`` (docs/methods.md §18);
 
 from __future__ import annotations
 
-from typing import Any
-
 import numpy as np
 from pydantic import Field, model_validator
 
-from calibrant.alarms.kinds.base import ChartKind, Params
+from calibrant.alarms.kinds.base import ChartKind, Params, always
 from calibrant.stats.cusum import UPPER_ODDS_RATIO, CusumState, CusumStep, advance
 from calibrant.stats.cusum_design import RECOMMENDED_MIN_RISKS
 
@@ -23,8 +21,8 @@ class ChartParams(Params):
     odds_ratio: float = Field(
         UPPER_ODDS_RATIO, gt=0, description="R_A: 2 watches for more events, ½ for fewer"
     )
-    false_alarms_per_year: float = Field(
-        1.0, gt=0, le=365, description="budget for the whole model, shared by all its chart streams"
+    budget_weight: float = Field(
+        2.0, gt=0, le=100, description="this rule's weight in the model's false-alarm budget"
     )
     min_design_cases: int = Field(RECOMMENDED_MIN_RISKS, ge=200, le=100_000)
     design_sample: int = Field(5000, ge=200, le=100_000)
@@ -41,22 +39,13 @@ class ChartParams(Params):
         return self
 
 
-def describe(params: ChartParams, *, streams: int, chart_streams: int) -> dict[str, Any]:
-    """The chart's budget is the model's, shared by its ``chart_streams``; ``streams`` is not used."""
+def describe(params: ChartParams) -> dict[str, str]:
     side = "more" if params.odds_ratio > 1 else "fewer"
     return {
         "detects": f"{side} events than predicted: the odds of every case multiplied by "
                    f"{params.odds_ratio:g} (risk-adjusted Bernoulli CUSUM), per version and segment",
         "minimum_data": f"{params.min_design_cases} mature outcomes per stream before its limit is "
                         "designed; the chart starts after that",
-        "false_alarms": {
-            "per_year": params.false_alarms_per_year,
-            "scope": "model",
-            "statement": f"limits designed so that the model's {chart_streams} chart streams together "
-                         f"raise at most {params.false_alarms_per_year:g} false alarm(s) a year: each "
-                         "chart's in-control ARL = streams × its cases per day × 365.25 / budget "
-                         "(Markov-chain design on the stream's own recent risks)",
-        },
     }
 
 
@@ -65,4 +54,4 @@ def decide(state: CusumState, p: np.ndarray, y: np.ndarray) -> CusumStep:
     return advance(state, p, y, return_path=True)
 
 
-SPEC = ChartKind(params=ChartParams, describe=describe, decide=decide)
+SPEC = ChartKind(params=ChartParams, describe=describe, decide=decide, in_budget=always)

@@ -7,8 +7,6 @@ effect floor.
 
 from __future__ import annotations
 
-from typing import Any
-
 from pydantic import Field
 
 from calibrant.alarms.kinds.base import (
@@ -17,8 +15,8 @@ from calibrant.alarms.kinds.base import (
     Params,
     WindowInputs,
     WindowKind,
+    always,
     whole,
-    window_false_alarms_per_year,
 )
 from calibrant.stats.result import Estimate
 from calibrant.stats.window_tests import psi_no_shift_level
@@ -26,26 +24,21 @@ from calibrant.stats.window_tests import psi_no_shift_level
 
 class DriftParams(Params):
     granularity: Granularity = "week"
-    level: float = Field(0.01, gt=0, lt=0.5)
     min_psi: float = Field(0.1, ge=0, description="effect floor (0.1: common practice, no published source)")
     min_predictions: int = Field(100, ge=10)
+    budget_weight: float = Field(1.0, gt=0, le=100, description="weight in the model's false-alarm budget")
 
 
-def describe(params: DriftParams, *, streams: int, chart_streams: int) -> dict[str, Any]:
-    per_year = window_false_alarms_per_year(params.level, params.granularity, streams)
+def describe(params: DriftParams) -> dict[str, str]:
     return {
         "detects": "score distribution of a closed period shifted from the reference (PSI on "
-                   "reference-decile bins), before outcomes can tell",
+                   "reference-decile bins above its no-shift point χ²(B−1)(1/n + 1/m) at the budget's "
+                   f"level and above {params.min_psi:g}), before outcomes can tell",
         "minimum_data": f"{params.min_predictions} predictions in the period and a reference",
-        "false_alarms": {"per_year": per_year, "level": params.level, "scope": "rule",
-                         "statement": f"PSI above its no-shift {1 - params.level:.0%} point "
-                                      "χ²(B−1)(1/n + 1/m) and above "
-                                      f"{params.min_psi:g}, once per {params.granularity} on "
-                                      f"{streams} stream(s)"},
     }
 
 
-def drift(est: Estimate, params: DriftParams) -> Decision:
+def drift(est: Estimate, params: DriftParams, level: float) -> Decision:
     """PSI above max(χ²_{1−α,B−1}(1/n + 1/m), min_psi) (docs/methods.md §17.2 second-order law)."""
     n = float(est.n or 0.0)
     if est.value is None or not est.measured:
@@ -56,16 +49,16 @@ def drift(est: Estimate, params: DriftParams) -> Decision:
     n_cur = float(est.extra.get("n_current") or n)
     if n_cur < params.min_predictions or n_ref <= 0:
         return Decision(None, est.value, whole(n_cur), f"too few cases: {n_cur:g} predictions")
-    null = psi_no_shift_level(params.level, n_bins, n_ref, n_cur)
+    null = psi_no_shift_level(level, n_bins, n_ref, n_cur)
     limit = max(null, params.min_psi)
     return Decision(bool(est.value > limit), est.value, whole(n_cur),
                     f"PSI {est.value:.4f} vs limit {limit:.4f} (no-shift point {null:.4f})", None,
                     {"null_level": null, "limit": limit, "n_bins": n_bins, "n_reference": whole(n_ref),
-                     "level": params.level, "edges": edges})
+                     "level": level, "edges": edges})
 
 
-def decide(params: DriftParams, period: WindowInputs) -> Decision:
-    return drift(period.metric("psi"), params)
+def decide(params: DriftParams, period: WindowInputs, level: float) -> Decision:
+    return drift(period.metric("psi"), params, level)
 
 
-SPEC = WindowKind(params=DriftParams, describe=describe, decide=decide)
+SPEC = WindowKind(params=DriftParams, describe=describe, decide=decide, in_budget=always)

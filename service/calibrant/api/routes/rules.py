@@ -17,10 +17,12 @@ router = APIRouter(prefix="/v1/models/{model}/rules", tags=["rules"])
 
 
 @router.get("", response_model=RuleList, responses=PROBLEM_RESPONSES,
-            summary="The model's rules, each with what it detects, its minimum data and false-alarm rate")
+            summary="The model's rules, each with what it detects, its minimum data and its share of "
+                    "the model's one false-alarm budget")
 async def list_rules(model: str, runtime: RuntimeDep, _caller: Reader) -> dict[str, Any]:
-    rules = await runtime.run(lambda s: service.list_rules(s, model, runtime.clock.now()))
-    return {"model": model, "rules": rules, "count": len(rules)}
+    listed = await runtime.run(lambda s: service.list_rules(s, model, runtime.clock.now()))
+    return {"model": model, "rules": listed["rules"], "count": len(listed["rules"]),
+            "budget": listed["budget"]}
 
 
 @router.post("", response_model=RuleOut, status_code=201, responses=PROBLEM_RESPONSES,
