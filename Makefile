@@ -44,6 +44,10 @@ bench: $(STAMP)
 	$(BIN)/python tests/bench/query.py
 	$(BIN)/python -m tests.bench.alarms
 	$(BIN)/python tests/bench/charts_history.py
+	$(BIN)/python -m tests.bench.window_null
+	$(BIN)/python -m tests.bench.null_year
+	$(BIN)/python -m tests.bench.null_year_service
+	$(BIN)/python -m tests.bench.hosmer_lemeshow_null
 
 clean:
 	rm -rf $(VENV) var .pytest_cache

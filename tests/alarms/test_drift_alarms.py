@@ -1,12 +1,13 @@
 """The default score-drift rule through the API, per week and per segment stream.
 
 Rule (``score-drift-weekly``): fire when a closed week's PSI against the
-reference exceeds max(χ²_{0.99, B−1} (1/n + 1/m), 0.1) — the no-shift 99 % point
-of docs/methods.md §17.2 for the week's n and the reference's m, floored at the common
-0.1 — with at least 100 predictions. The reference is an uploaded Beta(2,8)
-validation set; weeks are Beta(2,8) (no shift) or Beta(4,6) (shifted), with
-the same volume. Expected PSI is the docs/methods.md §17.2 formula in numpy on the raw
-rows binned at the reference's snapped deciles (``tests.rollup.test_metrics_reference``);
+reference exceeds max(χ²_{1−α, B−1} (1/n + 1/m), 0.1) — the no-shift 1 − α point
+of docs/methods.md §17.2 for the week's n and the reference's m, α the rule's
+per-test level from the model's budget, floored at the common 0.1 — with at
+least 100 predictions. The reference is an uploaded Beta(2,8) validation set;
+weeks are Beta(2,8) (no shift) or Beta(4,6) (shifted), with the same volume.
+Expected PSI is the docs/methods.md §17.2 formula in numpy on the raw rows
+binned at the reference's snapped deciles (``tests.rollup.test_metrics_reference``);
 the level is scipy's χ² quantile. Each segment holds half the week, so its
 no-shift point exceeds 0.1: the sample-size-aware level decides there.
 """
@@ -23,7 +24,7 @@ from fastapi.testclient import TestClient
 from scipy import stats
 
 from calibrant.clock import FixedClock
-from tests.alarms.streams import T0, make_day, post_day, refresh, setup_model
+from tests.alarms.streams import T0, Day, make_day, post_day, refresh, setup_model
 from tests.conftest import Database, make_client
 from tests.rollup.test_metrics_reference import psi_on, snapped_decile_edges
 
@@ -77,8 +78,8 @@ def _expected(rows: pd.DataFrame, reference: np.ndarray, min_psi: float) -> dict
     return out
 
 
-def _alarms(client: TestClient, rule: str) -> dict[str, dict]:
-    r = client.get("/v1/models/d/alarms", params={"rule": rule})
+def _alarms(client: TestClient, rule: str, model: str = "d") -> dict[str, dict]:
+    r = client.get(f"/v1/models/{model}/alarms", params={"rule": rule})
     assert r.status_code == 200, r.text
     return {(a["segment"] or {"value": "all"})["value"]: a for a in r.json()["alarms"]}
 
@@ -138,3 +139,31 @@ def test_drift_rules_fire_on_a_shifted_week_against_the_size_aware_level_and_res
     n_alarms = len(RULES) * len(STREAMS)
     assert db.scalar("SELECT count(*) FROM outbox_events WHERE kind = 'alarm.opened'") == n_alarms
     assert db.scalar("SELECT count(*) FROM outbox_events WHERE kind = 'alarm.resolved'") == n_alarms
+
+
+def test_a_segment_value_is_compared_with_its_own_traffic_reference(db: Database) -> None:
+    """Segment values with different, stable mixes raise no drift against a traffic reference.
+
+    North scores Beta(4,6) (mean 0.4), south Beta(1,9) (mean 0.1), the same every week. Against
+    the pooled reference each half would differ hugely (PSI well above 0.1); against its own
+    segment's reference weeks it is an unshifted sample. Then the mix of north moves to
+    Beta(1,9): north and the pooled stream fire, south stays quiet.
+    """
+    clock = FixedClock(T0)
+    client = make_client(db, clock=clock)
+    reference = {"kind": "traffic", "start": "2026-03-02T00:00:00Z", "end": "2026-03-16T00:00:00Z"}
+    setup_model(client, "s", keep=("score-drift-weekly",), reference=reference)
+    rng = np.random.default_rng(21)
+    for day in range(35):
+        d = make_day(rng, day, 120)
+        north = np.array([r == "north" for r in d.region])
+        moved = day >= 28
+        d.p = np.where(north, rng.beta(1, 9, d.p.size) if moved else rng.beta(4, 6, d.p.size),
+                       rng.beta(1, 9, d.p.size))
+        d.y = (rng.random(d.p.size) < d.p).astype(int)
+        post_day(client, "s", Day(d.day, d.ids, d.p, d.y, d.region, d.scored_at))
+    clock.set(T0 + timedelta(days=36, hours=2))
+    refresh(client)
+    opened = {(a["segment"] or {"value": "all"})["value"]: a["evidence"]["period_start"][:10]
+              for a in _alarms(client, "score-drift-weekly", "s").values()}
+    assert opened == {"north": "2026-03-30", "all": "2026-03-30"}

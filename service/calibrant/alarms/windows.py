@@ -14,7 +14,9 @@ alarm as it is.
 
 Excess log-loss is judged on the period's mature rows and on the reference's
 mature rows, both counted the model's way: with implicit negatives a mature
-prediction without an outcome is a 0 in both.
+prediction without an outcome is a 0 in both. A traffic reference is read per
+segment stream, so a segment value is compared with its own past rather than
+with the pooled mix of all values (an uploaded set has no tags and serves all).
 """
 
 from __future__ import annotations
@@ -108,15 +110,16 @@ class References:
     log_loss_sums: LogLossSums | None
 
 
-def references_of(session: Session, model: Model, now: datetime) -> References:
+def references_of(session: Session, model: Model, now: datetime, segment: tuple[str, str]) -> References:
+    """The reference of one segment stream (a traffic reference is read for that segment)."""
     conn = session.connection()
-    outcomes = reference_outcome_summary(conn, model, query.maturity_boundary(model, now))
+    outcomes = reference_outcome_summary(conn, model, query.maturity_boundary(model, now), segment)
     sums = None
     if outcomes is not None:
         traffic = (model.reference or {}).get("kind") == "traffic"
         sums = log_loss_sums(outcomes, bool(model.implicit_negatives) and traffic)
         sums = sums if sums.n > 0 else None
-    return References(scores=reference_summary(conn, model), log_loss_sums=sums)
+    return References(scores=reference_summary(conn, model, segment), log_loss_sums=sums)
 
 
 
@@ -144,8 +147,8 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
         spans = [p for p in spans if p.start >= first]
     if not dry_run:
         spans = spans[:MAX_PERIODS_PER_RUN]
-    references = references_of(session, model, now)
     streams = segments_of(session, model)
+    references = {segment: references_of(session, model, now, segment) for segment in streams}
     versions = alarm_repo.versions_of(conn, model.id)
     tests_per_year = EVALUATIONS_PER_YEAR[grain.value]
     for period in spans:
@@ -157,7 +160,7 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
             for segment in streams:
                 days = query.load_days(conn, model, period.start, period.end, segment=segment,
                                        version=version, boundary=boundary)
-                inputs = PeriodInputs(model, period, days, references)
+                inputs = PeriodInputs(model, period, days, references[segment])
                 if not inputs.summary().is_empty():
                     live.append((version, segment, inputs))
         level = None if share is None else per_test_level(share, tests_per_year, len(live))

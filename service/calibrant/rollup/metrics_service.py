@@ -108,7 +108,7 @@ def metrics(
     days = query.load_days(
         conn, model, first, spans[-1].end, segment=sel.segment, version=sel.version, boundary=boundary
     )
-    reference = reference_summary(conn, model)
+    reference = reference_summary(conn, model, sel.segment)
     body = []
     for span in spans:
         entry: dict[str, Any] = {"start": span.start, "end": span.end}

@@ -25,18 +25,27 @@ from calibrant.vocabulary.segments import ALL_SEGMENT
 MAX_REFERENCE_ROWS = 1_000_000
 
 
-def reference_summary(conn: Connection, model: Any) -> Summary | None:
-    """Every prediction of the reference, labeled or not: what score drift compares with."""
+MODEL_WIDE = (ALL_SEGMENT, ALL_SEGMENT)
+
+
+def reference_summary(conn: Connection, model: Any, segment: tuple[str, str] = MODEL_WIDE) -> Summary | None:
+    """Every prediction of the reference, labeled or not: what score drift compares with.
+
+    A traffic reference is read for the segment asked (a segment value is compared with its own
+    past, not with the pooled mix of every value); an uploaded set has no tags and serves every
+    segment as it is.
+    """
     ref = model.reference
     if not ref:
         return None
     if ref.get("kind") == "uploaded":
         payload = rollup_repo.reference_sample(conn, model.id)
         return None if payload is None else Summary.from_bytes(payload)
-    return _traffic(conn, model, boundary=None)
+    return _traffic(conn, model, boundary=None, segment=segment)
 
 
-def reference_outcome_summary(conn: Connection, model: Any, boundary: datetime | None) -> Summary | None:
+def reference_outcome_summary(conn: Connection, model: Any, boundary: datetime | None,
+                              segment: tuple[str, str] = MODEL_WIDE) -> Summary | None:
     """The reference's mature predictions, for the rules that judge outcomes (excess log-loss).
 
     A traffic reference keeps only its mature hours (the boundary of
@@ -50,17 +59,18 @@ def reference_outcome_summary(conn: Connection, model: Any, boundary: datetime |
         return None
     if ref.get("kind") == "uploaded":
         return reference_summary(conn, model)
-    return _traffic(conn, model, boundary=boundary)
+    return _traffic(conn, model, boundary=boundary, segment=segment)
 
 
-def _traffic(conn: Connection, model: Any, *, boundary: datetime | None) -> Summary | None:
+def _traffic(conn: Connection, model: Any, *, boundary: datetime | None,
+             segment: tuple[str, str]) -> Summary | None:
     ref = model.reference
     days = load_days(
         conn,
         model,
         datetime.fromisoformat(ref["start"]),
         datetime.fromisoformat(ref["end"]),
-        segment=(ALL_SEGMENT, ALL_SEGMENT),
+        segment=segment,
         version=ref.get("version"),
         boundary=boundary,
     )
