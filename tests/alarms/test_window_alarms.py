@@ -16,6 +16,7 @@ from datetime import timedelta
 
 import numpy as np
 import pytest
+import statsmodels.api as sm
 
 from calibrant.clock import FixedClock
 from tests.alarms.streams import T0, make_day, post_day, post_outcomes, refresh, setup_model
@@ -107,3 +108,56 @@ def test_implicit_negatives_drift_against_a_traffic_reference_raises_the_statist
     assert everything[0]["evidence"]["statistic"] > 0
     # The only enabled rule: it holds the model's whole budget of one false alarm a year.
     assert everything[0]["budget_share_per_year"] == pytest.approx(1.0)
+
+
+SLOPE_RULE = "calibration-slope-weekly"
+
+
+def test_one_extreme_prediction_cannot_fire_the_slope_rule(db: Database) -> None:
+    """A calibrated week plus one p = 1e-9 case that had the event: the plain slope collapses, no alarm.
+
+    Expected values from outside: the plain and robust slopes are statsmodels' logistic fits of
+    y on logit(p), plain and clipped (docs/methods.md §9.2, §9.6); the counts of clipped and
+    confident-error cases are numpy counts on the posted rows (p < ε = 2.2e-16 or p > 1 − ε;
+    y = 1 with p < 1e-6).
+    """
+    clock = FixedClock(T0)
+    client = make_client(db, clock=clock)
+    # A generous budget (50 a year: each rule tests at a level of about 0.16 here) makes the
+    # claim stronger: even so the slope rule stays quiet, while the same week judged by the
+    # plain slope alone (bounds and its Wald test, the rule this kind replaced) fires.
+    setup_model(client, "x", keep=(SLOPE_RULE,), false_alarms_per_year=50)
+    plain_rule = {"name": "plain-slope", "kind": "metric_threshold", "params": {
+        "metric": "calibration_slope", "lower": 0.8, "upper": 1.2, "interval_excludes": 1.0, "min_n": 200}}
+    assert client.post("/v1/models/x/rules", json=plain_rule).status_code == 201
+    rng = np.random.default_rng(5)
+    days = []
+    for day in range(7):
+        d = make_day(rng, day, 45)
+        if day == 3:
+            d.p[0], d.y[0] = 1e-9, 1  # the one extreme case
+        post_day(client, "x", d)
+        days.append(d)
+    clock.set(T0 + timedelta(days=8, hours=2))
+    refresh(client)
+    assert client.get("/v1/models/x/alarms", params={"rule": SLOPE_RULE}).json()["alarms"] == []
+    fired = client.get("/v1/models/x/alarms", params={"rule": "plain-slope"}).json()["alarms"]
+    assert [a["segment"] for a in fired if a["segment"] is None] == [None]
+
+    p = np.concatenate([d.p for d in days])
+    y = np.concatenate([d.y for d in days])
+    x = np.log(p / (1 - p))
+    plain = sm.Logit(y, sm.add_constant(x)).fit(disp=0).params[1]  # source: statsmodels
+    week = client.get("/v1/models/x/metrics", params={
+        "granularity": "week", "start": "2026-03-02T00:00:00Z", "end": "2026-03-09T00:00:00Z"}).json()
+    period = week["periods"][0]
+    assert period["calibration_slope"] == pytest.approx(plain, abs=0.02)
+    assert plain < 0.8  # the case really moves the plain slope below the rule's floor
+    # The robust slope: the same fit on logits clipped to the week's 2.5 and 97.5 % points
+    # (docs/methods.md §9.6), here with numpy's quantiles on the raw rows and statsmodels.
+    lo, hi = np.quantile(x, [0.025, 0.975])
+    robust = sm.Logit(y, sm.add_constant(np.clip(x, lo, hi))).fit(disp=0).params[1]
+    assert period["calibration_slope_robust"] == pytest.approx(robust, abs=0.02)
+    assert robust > 0.8  # the robust slope does not follow the plain one below the floor
+    assert period["n_confident_errors"] == int(np.sum((y == 1) & (p < 1e-6)))  # numpy count
+    assert period["n_clipped"] == int(np.sum((p < 2.220446049250313e-16) | (p > 1 - 2.220446049250313e-16)))
