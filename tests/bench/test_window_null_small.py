@@ -6,8 +6,9 @@ interval (``scipy.stats.binom``) around a band of true rates that an honest test
 meets: level × [0.75, 1.25] at level 0.01, × [0.5, 1.5] for the excess log-loss
 tail at 1e-4 (the full run gives 0.99-1.12 × and 0.81-1.17 ×), and at most 3 ×
 for PSI at 1e-4, whose χ² point is a second-order approximation (full run:
-0.95-1.45 ×). The benchmark itself asserts that its fast paths equal the
-service's own code on the first periods of every cell.
+0.95-1.45 ×); the calibration-slope rule at most at its level. The benchmark
+itself asserts that its fast paths equal the service's own code on the first
+periods of every cell.
 """
 
 from __future__ import annotations
@@ -67,3 +68,11 @@ def test_psi_no_shift_point_rejects_at_its_level(cells: list[Cell]) -> None:
     assert _within(_pooled(cells, f"psi {LEVEL:g}", "test"), 0.75 * LEVEL, 1.25 * LEVEL)
     small = _pooled(cells, f"psi {SMALL_LEVEL:g}", "test")
     assert small.k <= stats.binom.ppf(0.9995, small.n, 3 * SMALL_LEVEL), small
+
+
+def test_calibration_slope_rule_holds_its_level(cells: list[Cell]) -> None:
+    # The rule needs both Wald tests to reject, so it cannot reject more often than the plain test;
+    # the full run gives the rule 0.50-0.73 × the level and the plain test 0.80-1.02 ×.
+    rule = _pooled(cells, "slope", "rule")
+    assert rule.k <= stats.binom.ppf(0.9995, rule.n, LEVEL), rule
+    assert _within(_pooled(cells, "slope", "plain Wald"), 0.5 * LEVEL, 1.5 * LEVEL)
