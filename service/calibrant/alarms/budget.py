@@ -125,9 +125,7 @@ def per_test_level(share_per_year: float, tests_per_year: float, streams: int) -
 
 def of_model(session: Session, model: Model) -> Budget:
     """The model's budget split over its rules as they are stored now."""
-    rules = [RuleEntry(r.name, r.kind, dict(r.params or {}), r.enabled)
-             for r in alarm_repo.rules_of(session, model.id)]
-    return split(float(model.false_alarms_per_year or DEFAULT_FALSE_ALARMS_PER_YEAR), rules)
+    return _stored_split(session, model, enable=None)
 
 
 def statement(share: RuleShare | None, evaluation: str, granularity: str | None, streams: int) -> str:
@@ -154,7 +152,12 @@ def statement(share: RuleShare | None, evaluation: str, granularity: str | None,
 
 def share_as_enabled(session: Session, model: Model, rule: AlarmRule) -> float | None:
     """The rule's share were it enabled (backtests and restarts of a disabled rule); None: outside."""
-    entries = [RuleEntry(r.name, r.kind, dict(r.params or {}), r.enabled or r.id == rule.id)
+    return _stored_split(session, model, enable=rule).share_of(rule.name)
+
+
+def _stored_split(session: Session, model: Model, *, enable: AlarmRule | None) -> Budget:
+    """The split of the stored rules; ``enable``, if given, counts as enabled whatever it says."""
+    enabled_id = None if enable is None else enable.id
+    entries = [RuleEntry(r.name, r.kind, dict(r.params or {}), r.enabled or r.id == enabled_id)
                for r in alarm_repo.rules_of(session, model.id)]
-    per_year = float(model.false_alarms_per_year or DEFAULT_FALSE_ALARMS_PER_YEAR)
-    return split(per_year, entries).share_of(rule.name)
+    return split(float(model.false_alarms_per_year or DEFAULT_FALSE_ALARMS_PER_YEAR), entries)

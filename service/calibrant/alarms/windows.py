@@ -148,7 +148,9 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
     if not dry_run:
         spans = spans[:MAX_PERIODS_PER_RUN]
     streams = segments_of(session, model)
-    references = {segment: references_of(session, model, now, segment) for segment in streams}
+    # Read each segment's reference once, and only when a period is ready: most job rounds judge
+    # nothing, and a traffic reference costs a read of its whole range per segment.
+    references: dict[tuple[str, str], References] = {}
     versions = alarm_repo.versions_of(conn, model.id)
     tests_per_year = EVALUATIONS_PER_YEAR[grain.value]
     for period in spans:
@@ -160,6 +162,8 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
             for segment in streams:
                 days = query.load_days(conn, model, period.start, period.end, segment=segment,
                                        version=version, boundary=boundary)
+                if segment not in references:
+                    references[segment] = references_of(session, model, now, segment)
                 inputs = PeriodInputs(model, period, days, references[segment])
                 if not inputs.summary().is_empty():
                     live.append((version, segment, inputs))
