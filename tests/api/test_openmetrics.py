@@ -30,15 +30,16 @@ def traffic(seed: int = 7) -> tuple[list[dict], list[dict], np.ndarray, np.ndarr
     predictions = [{"id": f"parcel-{i}", "probability": float(p[i]),
                     "scored_at": (WEEK + timedelta(hours=i)).isoformat(), "tags": {"depot": depots[i]}}
                    for i in range(N)]
-    outcomes = [{"id": f"parcel-{i}", "label": int(y[i]), "observed_at": (WEEK + timedelta(days=6)).isoformat()}
-                for i in range(N)]
+    observed = (WEEK + timedelta(days=6)).isoformat()
+    outcomes = [{"id": f"parcel-{i}", "label": int(y[i]), "observed_at": observed} for i in range(N)]
     return predictions, outcomes, p, y, depots
 
 
 def seed(client: TestClient, model: str = "late-delivery") -> tuple[np.ndarray, np.ndarray, list[str]]:
     predictions, outcomes, p, y, depots = traffic()
     assert client.put(f"/v1/models/{model}", json={"segment_keys": ["depot"]}).status_code == 201
-    assert client.post(f"/v1/models/{model}/predictions", json={"predictions": predictions}).status_code == 200
+    posted = client.post(f"/v1/models/{model}/predictions", json={"predictions": predictions})
+    assert posted.status_code == 200
     assert client.post(f"/v1/models/{model}/outcomes", json={"outcomes": outcomes}).status_code == 200
     assert client.post("/v1/refresh").status_code == 200
     return p, y, depots
@@ -123,7 +124,8 @@ def test_refresh_lag_counts_from_the_oldest_waiting_change(db: Database) -> None
     posted_at = WEEK + timedelta(days=8)
     clock = FixedClock(posted_at)
     with make_client(db, clock=clock) as client:
-        assert client.post("/v1/models/m/predictions", json={"predictions": predictions[:5]}).status_code == 200
+        posted = client.post("/v1/models/m/predictions", json={"predictions": predictions[:5]})
+        assert posted.status_code == 200
         clock.advance(timedelta(minutes=3))
         samples = scrape(client)
     assert samples["calibrant_rollup_dirty_hours"][()] == 5
