@@ -15,7 +15,7 @@ from typing import TypeVar
 
 from sqlalchemy import Connection, Engine, event, text
 from sqlalchemy.exc import OperationalError, SQLAlchemyError
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm import Session, SessionTransaction, sessionmaker
 
 __all__ = [
     "Connection",
@@ -73,7 +73,7 @@ def after_commit(session: Session, callback: Callable[[], None]) -> None:
     if pending is None:
         pending = session.info[_AFTER_COMMIT] = []
         event.listen(session, "after_commit", _run_pending)
-        event.listen(session, "after_rollback", _drop_pending)
+        event.listen(session, "after_soft_rollback", _drop_pending)
     pending.append(callback)
 
 
@@ -84,8 +84,11 @@ def _run_pending(session: Session) -> None:
         callback()
 
 
-def _drop_pending(session: Session) -> None:
-    session.info[_AFTER_COMMIT] = []
+def _drop_pending(session: Session, previous_transaction: SessionTransaction) -> None:
+    # Any rollback of the outer transaction, even one with nothing to undo on the database; a
+    # savepoint rolled back inside it leaves the outer transaction's callbacks pending.
+    if not previous_transaction.nested:
+        session.info[_AFTER_COMMIT] = []
 
 
 def ping(engine: Engine) -> None:
