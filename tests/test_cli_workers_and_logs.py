@@ -1,4 +1,5 @@
-"""``calibrant serve --workers N`` and ``--log-format json``; the log line of an alarm opening and resolving."""
+"""``calibrant serve --workers N`` and ``--log-format json``; the log lines of an alarm opening and
+resolving."""
 
 from __future__ import annotations
 
@@ -51,7 +52,8 @@ def test_workers_on_postgresql_start_uvicorn_with_a_factory_per_process(
     # Each worker builds its app from the environment, which now says what the command line said.
     app = cli.worker_app()
     runtime = app.state.runtime
-    assert (runtime.settings.workers, runtime.settings.port, runtime.settings.jobs_in_server) == (3, 8124, False)
+    chosen = runtime.settings
+    assert (chosen.workers, chosen.port, chosen.jobs_in_server) == (3, 8124, False)
     runtime.engine.dispose()
 
 
