@@ -28,7 +28,7 @@ from calibrant.logs import FORMATS, log_config
 from calibrant.store import audit, keys_repo, migrate
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.keys_repo import Scope
-from calibrant.store.unit import DatabaseError, ping
+from calibrant.store.unit import DatabaseError, Engine, ping
 
 _WHOLE = "settings"  # the field name field_errors gives a check on the settings as a whole
 
@@ -49,8 +49,12 @@ def _settings(**overrides: Any) -> Settings:
 def cmd_migrate(args: argparse.Namespace) -> int:
     settings = _settings()
     engine = make_engine(settings)
-    migrate.upgrade(engine)
-    engine.dispose()
+    try:
+        if args.wait and not _wait_for_database(engine, args.wait, interval=1.0):
+            return 1
+        migrate.upgrade(engine)
+    finally:
+        engine.dispose()
     print(f"database at {engine.url.render_as_string(hide_password=True)} is up to date")
     return 0
 
@@ -97,25 +101,28 @@ def worker_app() -> FastAPI:
 
 def cmd_wait(args: argparse.Namespace) -> int:
     """Return once the database answers, or fail after ``--timeout`` seconds (container start-up)."""
-    settings = _settings()
-    engine = make_engine(settings)
-    deadline = time.monotonic() + args.timeout
-    shown = engine.url.render_as_string(hide_password=True)
+    engine = make_engine(_settings())
     try:
-        while True:
-            try:
-                ping(engine)
-            except DatabaseError as exc:
-                if time.monotonic() >= deadline:
-                    print(f"calibrant: database at {shown} still unreachable after {args.timeout:g} s: "
-                          f"{str(exc).splitlines()[0]}", file=sys.stderr)
-                    return 1
-                time.sleep(args.interval)
-                continue
-            print(f"database at {shown} answers")
-            return 0
+        return 0 if _wait_for_database(engine, args.timeout, args.interval) else 1
     finally:
         engine.dispose()
+
+
+def _wait_for_database(engine: Engine, timeout: float, interval: float) -> bool:
+    shown = engine.url.render_as_string(hide_password=True)
+    deadline = time.monotonic() + timeout
+    while True:
+        try:
+            ping(engine)
+        except DatabaseError as exc:
+            if time.monotonic() >= deadline:
+                print(f"calibrant: database at {shown} still unreachable after {timeout:g} s: "
+                      f"{str(exc).splitlines()[0]}", file=sys.stderr)
+                return False
+            time.sleep(interval)
+            continue
+        print(f"database at {shown} answers")
+        return True
 
 
 def _job_context(settings: Settings) -> JobContext:
@@ -228,6 +235,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
 
     mig = sub.add_parser("migrate", help="create or upgrade the database schema")
+    mig.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",
+                     help="first wait up to this long for the database to answer (container start-up)")
     mig.set_defaults(func=cmd_migrate)
 
     keys = sub.add_parser("keys", help="manage API keys").add_subparsers(dest="keys", required=True)
