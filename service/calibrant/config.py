@@ -46,6 +46,11 @@ class Settings(BaseSettings):
     )
     sqlite_cache_mib: int = Field(64, ge=1, description="SQLite page cache per connection.")
     db_pool_size: int = Field(5, ge=1, description="Connections kept per process (PostgreSQL).")
+    postgres_prepared_statements: bool = Field(
+        True,
+        description="Let psycopg prepare repeated statements on the server; false behind a "
+        "transaction-mode pooler that cannot keep them (PgBouncer before 1.21).",
+    )
     log_level: str = Field("info", description="uvicorn/app log level.")
     log_format: str = Field("text", description="text, or json: one JSON object per log line.")
     workers: int = Field(
