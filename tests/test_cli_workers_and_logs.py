@@ -48,6 +48,7 @@ def test_workers_on_postgresql_start_uvicorn_with_a_factory_per_process(
     (kwargs,) = recorder.calls
     assert calls == ["calibrant.cli:worker_app"]
     assert (kwargs["factory"], kwargs["workers"], kwargs["port"]) == (True, 3, 8124)
+    assert kwargs["timeout_worker_healthcheck"] == cli.WORKER_HEALTHCHECK_SECONDS
     assert kwargs["log_config"]["formatters"]["default"]["()"] is JsonFormatter
     # Each worker builds its app from the environment, which now says what the command line said.
     app = cli.worker_app()
@@ -114,3 +115,15 @@ def test_an_alarm_opening_and_resolving_each_write_one_structured_line(db: Datab
         assert record.stream == "all_versions/all"
         assert isinstance(record.statistic, float)
         assert f"alarm_id={alarm['id']}" in record.getMessage()
+
+
+def test_wait_returns_once_the_database_answers(db: Database, monkeypatch, capsys) -> None:
+    monkeypatch.setenv("CALIBRANT_DATABASE_URL", db.url)
+    assert cli.main(["wait", "--timeout", "5"]) == 0
+    assert "answers" in capsys.readouterr().out
+
+
+def test_wait_gives_up_after_its_timeout(monkeypatch, capsys) -> None:
+    monkeypatch.setenv("CALIBRANT_DATABASE_URL", "postgresql+psycopg://postgres@127.0.0.1:1/test")
+    assert cli.main(["wait", "--timeout", "0", "--interval", "0"]) == 1
+    assert "still unreachable after 0 s" in capsys.readouterr().err

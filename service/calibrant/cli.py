@@ -30,7 +30,11 @@ from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.keys_repo import Scope
 from calibrant.store.unit import DatabaseError, Engine, ping
 
-_WHOLE = "settings"  # the field name field_errors gives a check on the settings as a whole
+_WHOLE = "settings"
+# How long uvicorn waits for a worker to answer its health ping (its default is 5 s). A worker
+# imports numpy, scipy and FastAPI before it can answer; on a busy host that took longer than 5 s
+# here, and uvicorn then killed and restarted each worker in a loop.
+WORKER_HEALTHCHECK_SECONDS = 30  # the field name field_errors gives a check on the settings as a whole
 
 
 def _settings(**overrides: Any) -> Settings:
@@ -89,7 +93,8 @@ def cmd_serve(args: argparse.Namespace) -> int:
         "CALIBRANT_JOBS_IN_SERVER": str(settings.jobs_in_server).lower(),
     })
     uvicorn.run("calibrant.cli:worker_app", factory=True, host=settings.host, port=settings.port,
-                workers=settings.workers, log_level=settings.log_level, log_config=logging_config)
+                workers=settings.workers, log_level=settings.log_level, log_config=logging_config,
+                timeout_worker_healthcheck=WORKER_HEALTHCHECK_SECONDS)
     return 0
 
 

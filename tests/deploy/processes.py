@@ -15,7 +15,7 @@ import httpx
 
 REPO = Path(__file__).resolve().parents[2]
 DEPLOY = REPO / "deploy"
-START_DEADLINE_S = 60.0
+START_DEADLINE_S = 120.0  # a deadline, not a sleep: a busy 2-core host starts two workers slowly
 
 
 def tool_env(**variables: str) -> dict[str, str]:
