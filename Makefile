@@ -7,10 +7,11 @@ export CALIBRANT_DATABASE_URL ?= sqlite:///./var/calibrant.db
 
 .PHONY: run test lint bench venv migrate clean demo
 
-$(STAMP): pyproject.toml
+$(STAMP): pyproject.toml clients/python/pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[dev]'
+	# One command, so pip takes the server's calibrant-client requirement from clients/python.
+	$(BIN)/python -m pip install --quiet -e ./clients/python -e '.[dev]'
 	touch $(STAMP)
 
 venv: $(STAMP)
@@ -19,17 +20,18 @@ migrate: $(STAMP)
 	mkdir -p var
 	$(BIN)/calibrant migrate
 
+# Host and port come from CALIBRANT_HOST and CALIBRANT_PORT (default 127.0.0.1:8000).
 run: migrate
-	$(BIN)/calibrant serve --host 127.0.0.1 --port 8000
+	$(BIN)/calibrant serve
 
 test: $(STAMP)
-	$(BIN)/ruff check service tests migrations demo
+	$(BIN)/ruff check service tests migrations demo clients deploy
 	$(BIN)/lint-imports
 	$(BIN)/mypy
 	$(BIN)/python -m pytest
 
 lint: $(STAMP)
-	$(BIN)/ruff check service tests migrations demo
+	$(BIN)/ruff check service tests migrations demo clients deploy
 	$(BIN)/lint-imports
 	$(BIN)/mypy
 

@@ -14,7 +14,7 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from urllib.parse import quote
 
-from calibrant.client import Client
+from calibrant_client import Client
 from demo import scenario
 from demo.progress import Progress
 from demo.receiver import Delivery, WebhookReceiver

@@ -15,7 +15,17 @@ from fastapi import FastAPI
 import calibrant
 from calibrant import jobs, scheduler
 from calibrant.api import problems
-from calibrant.api.routes import alarms, health, ingest, metrics, models, refresh, rules, webhooks
+from calibrant.api.routes import (
+    alarms,
+    health,
+    ingest,
+    metrics,
+    models,
+    openmetrics,
+    refresh,
+    rules,
+    webhooks,
+)
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import add_body_schemas
 from calibrant.clock import Clock, SystemClock
@@ -90,6 +100,7 @@ def create_app(
     app.state.runtime = runtime  # read back only by api.deps.get_runtime
     problems.install(app)
     app.include_router(health.router)
+    app.include_router(openmetrics.router)
     app.include_router(ingest.router)
     app.include_router(models.router)
     app.include_router(metrics.router)

@@ -1,4 +1,4 @@
-"""The ``calibrant`` command: serve, migrate, keys.
+"""The ``calibrant`` command: serve, wait, migrate, refresh, scheduler, keys.
 
 A composition root: it reads Settings once and wires the layers together.
 """
@@ -7,11 +7,15 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import logging.config
+import os
 import sys
+import time
 from collections.abc import Sequence
 from typing import Any
 
 import uvicorn
+from fastapi import FastAPI
 from pydantic import ValidationError
 
 from calibrant import scheduler
@@ -20,11 +24,17 @@ from calibrant.clock import SystemClock
 from calibrant.config import Settings
 from calibrant.errors import field_errors
 from calibrant.jobs import JobContext, run_all
+from calibrant.logs import FORMATS, log_config
 from calibrant.store import audit, keys_repo, migrate
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.keys_repo import Scope
+from calibrant.store.unit import DatabaseError, Engine, ping
 
-_WHOLE = "settings"  # the field name field_errors gives a check on the settings as a whole
+_WHOLE = "settings"
+# How long uvicorn waits for a worker to answer its health ping (its default is 5 s). A worker
+# imports numpy, scipy and FastAPI before it can answer; on a busy host that took longer than 5 s
+# here, and uvicorn then killed and restarted each worker in a loop.
+WORKER_HEALTHCHECK_SECONDS = 30  # the field name field_errors gives a check on the settings as a whole
 
 
 def _settings(**overrides: Any) -> Settings:
@@ -43,14 +53,21 @@ def _settings(**overrides: Any) -> Settings:
 def cmd_migrate(args: argparse.Namespace) -> int:
     settings = _settings()
     engine = make_engine(settings)
-    migrate.upgrade(engine)
-    engine.dispose()
+    try:
+        if args.wait and not _wait_for_database(engine, args.wait, interval=1.0):
+            return 1
+        migrate.upgrade(engine)
+    finally:
+        engine.dispose()
     print(f"database at {engine.url.render_as_string(hide_password=True)} is up to date")
     return 0
 
 
 def cmd_serve(args: argparse.Namespace) -> int:
-    settings = _settings(host=args.host, port=args.port)
+    settings = _settings(
+        host=args.host, port=args.port, workers=args.workers, log_format=args.log_format,
+        jobs_in_server=False if args.no_scheduler else None,
+    )
     engine = make_engine(settings)
     if settings.keys_required:
         with make_session_factory(engine)() as session:
@@ -61,9 +78,56 @@ def cmd_serve(args: argparse.Namespace) -> int:
                     file=sys.stderr,
                 )
                 return 2
-    app = create_app(settings, engine=engine, run_scheduler=not args.no_scheduler)
-    uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level)
+    logging_config = log_config(settings.log_level, settings.log_format)
+    if settings.workers == 1:
+        app = create_app(settings, engine=engine, run_scheduler=settings.jobs_in_server)
+        uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level,
+                    log_config=logging_config)
+        return 0
+    engine.dispose()
+    # Each worker is a fresh process that builds its app from the environment (worker_app):
+    # hand it the settings the command line chose, so every worker agrees with this check.
+    os.environ.update({
+        "CALIBRANT_HOST": settings.host, "CALIBRANT_PORT": str(settings.port),
+        "CALIBRANT_WORKERS": str(settings.workers), "CALIBRANT_LOG_FORMAT": settings.log_format,
+        "CALIBRANT_JOBS_IN_SERVER": str(settings.jobs_in_server).lower(),
+    })
+    uvicorn.run("calibrant.cli:worker_app", factory=True, host=settings.host, port=settings.port,
+                workers=settings.workers, log_level=settings.log_level, log_config=logging_config,
+                timeout_worker_healthcheck=WORKER_HEALTHCHECK_SECONDS)
     return 0
+
+
+def worker_app() -> FastAPI:
+    """The app of one ``serve --workers N`` process, from the ``CALIBRANT_*`` environment."""
+    settings = _settings()
+    return create_app(settings, run_scheduler=settings.jobs_in_server)
+
+
+def cmd_wait(args: argparse.Namespace) -> int:
+    """Return once the database answers, or fail after ``--timeout`` seconds (container start-up)."""
+    engine = make_engine(_settings())
+    try:
+        return 0 if _wait_for_database(engine, args.timeout, args.interval) else 1
+    finally:
+        engine.dispose()
+
+
+def _wait_for_database(engine: Engine, timeout: float, interval: float) -> bool:
+    shown = engine.url.render_as_string(hide_password=True)
+    deadline = time.monotonic() + timeout
+    while True:
+        try:
+            ping(engine)
+        except DatabaseError as exc:
+            if time.monotonic() >= deadline:
+                print(f"calibrant: database at {shown} still unreachable after {timeout:g} s: "
+                      f"{str(exc).splitlines()[0]}", file=sys.stderr)
+                return False
+            time.sleep(interval)
+            continue
+        print(f"database at {shown} answers")
+        return True
 
 
 def _job_context(settings: Settings) -> JobContext:
@@ -71,7 +135,9 @@ def _job_context(settings: Settings) -> JobContext:
 
 
 def cmd_refresh(args: argparse.Namespace) -> int:
-    ctx = _job_context(_settings())
+    settings = _settings()
+    logging.config.dictConfig(log_config(settings.log_level, settings.log_format))
+    ctx = _job_context(settings)
     report = run_all(ctx)
     for job, figures in report["jobs"].items():
         shown = ", ".join(f"{k}={v}" for k, v in figures.items()) or "nothing to do"
@@ -82,6 +148,7 @@ def cmd_refresh(args: argparse.Namespace) -> int:
 
 def cmd_scheduler(args: argparse.Namespace) -> int:
     settings = _settings()
+    logging.config.dictConfig(log_config(settings.log_level, settings.log_format))
     print(f"running scheduled jobs every {settings.refresh_seconds:g} s; Ctrl-C stops", file=sys.stderr)
     with contextlib.suppress(KeyboardInterrupt):
         scheduler.run_forever(_job_context(settings))
@@ -151,9 +218,21 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--host", help="address to listen on (CALIBRANT_HOST, default 127.0.0.1)")
     serve.add_argument("--port", type=int, help="port (CALIBRANT_PORT, default 8000)")
     serve.add_argument(
+        "--workers", type=int,
+        help="server processes (CALIBRANT_WORKERS, default 1); more than 1 needs PostgreSQL",
+    )
+    serve.add_argument(
+        "--log-format", choices=FORMATS, help="text or json (CALIBRANT_LOG_FORMAT, default text)"
+    )
+    serve.add_argument(
         "--no-scheduler", action="store_true", help="serve only; run `calibrant scheduler` elsewhere"
     )
     serve.set_defaults(func=cmd_serve)
+
+    wait = sub.add_parser("wait", help="wait until the database answers (for container start-up)")
+    wait.add_argument("--timeout", type=float, default=60.0, help="give up after this many seconds")
+    wait.add_argument("--interval", type=float, default=1.0, help="seconds between two tries")
+    wait.set_defaults(func=cmd_wait)
 
     sub.add_parser("refresh", help="run every job until no work is left").set_defaults(func=cmd_refresh)
     sub.add_parser("scheduler", help="run the scheduled jobs without serving").set_defaults(
@@ -161,6 +240,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
 
     mig = sub.add_parser("migrate", help="create or upgrade the database schema")
+    mig.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",
+                     help="first wait up to this long for the database to answer (container start-up)")
     mig.set_defaults(func=cmd_migrate)
 
     keys = sub.add_parser("keys", help="manage API keys").add_subparsers(dest="keys", required=True)

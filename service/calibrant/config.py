@@ -9,7 +9,7 @@ from __future__ import annotations
 import ipaddress
 from enum import StrEnum
 
-from pydantic import Field, field_validator, model_validator
+from pydantic import Field, ValidationInfo, field_validator, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 DEFAULT_DATABASE_URL = "sqlite:///./var/calibrant.db"
@@ -46,7 +46,28 @@ class Settings(BaseSettings):
     )
     sqlite_cache_mib: int = Field(64, ge=1, description="SQLite page cache per connection.")
     db_pool_size: int = Field(5, ge=1, description="Connections kept per process (PostgreSQL).")
+    postgres_prepared_statements: bool = Field(
+        True,
+        description="Let psycopg prepare repeated statements on the server; false behind a "
+        "transaction-mode pooler that cannot keep them (PgBouncer before 1.21).",
+    )
     log_level: str = Field("info", description="uvicorn/app log level.")
+    log_format: str = Field("text", description="text, or json: one JSON object per log line.")
+    workers: int = Field(
+        1, ge=1, le=64, description="Server processes of `calibrant serve`; more than 1 needs PostgreSQL."
+    )
+    jobs_in_server: bool = Field(
+        True,
+        description="Run the scheduled jobs inside each `calibrant serve` process (false: run "
+        "`calibrant scheduler` once, elsewhere).",
+    )
+    metrics_granularity: str = Field(
+        "week", description="Period of the figures GET /metrics shows: day, week or month (UTC)."
+    )
+    metrics_label_sets: int = Field(
+        50, ge=1, le=1000, description="Most label sets (whole model, then segment values) per model "
+        "in GET /metrics.",
+    )
     refresh_seconds: float = Field(
         60.0, gt=0, le=86_400, description="Interval of the scheduled jobs (refresh, delivery)."
     )
@@ -94,6 +115,32 @@ class Settings(BaseSettings):
         if upper not in {"FULL", "NORMAL", "EXTRA"}:
             raise ValueError("must be FULL, NORMAL or EXTRA")
         return upper
+
+    @field_validator("log_format")
+    @classmethod
+    def _known_log_format(cls, value: str) -> str:
+        if value not in {"text", "json"}:
+            raise ValueError("must be text or json")
+        return value
+
+    @field_validator("metrics_granularity")
+    @classmethod
+    def _known_granularity(cls, value: str) -> str:
+        if value not in {"day", "week", "month"}:
+            raise ValueError("must be day, week or month")
+        return value
+
+    @field_validator("workers")
+    @classmethod
+    def _one_writer_on_sqlite(cls, value: int, info: ValidationInfo) -> int:
+        url = str(info.data.get("database_url", ""))
+        if value > 1 and url.startswith("sqlite"):
+            raise ValueError(
+                f"{value} workers refused on SQLite: SQLite lets one process write at a time, so extra "
+                "workers would only queue on its lock; use 1 worker, or PostgreSQL "
+                "(CALIBRANT_DATABASE_URL=postgresql+psycopg://...) for more"
+            )
+        return value
 
     @field_validator("webhook_sender")
     @classmethod

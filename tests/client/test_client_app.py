@@ -11,10 +11,9 @@ import pytest
 from fastapi.testclient import TestClient
 
 from calibrant.app import create_app
-from calibrant.client import CalibrantRequestError, Client
-from calibrant.client_buffer import BatchingSender
 from calibrant.config import Settings
 from calibrant.store.engine import make_engine
+from calibrant_client import BatchingSender, CalibrantRequestError, Client
 
 T0 = datetime(2026, 11, 2, tzinfo=UTC)  # a Monday
 

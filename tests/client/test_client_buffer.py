@@ -10,8 +10,7 @@ from datetime import UTC, datetime
 import httpx
 import pytest
 
-from calibrant.client import Client
-from calibrant.client_buffer import BatchingSender
+from calibrant_client import BatchingSender, Client
 
 T = datetime(2026, 11, 2, tzinfo=UTC)
 

@@ -8,7 +8,7 @@ from datetime import UTC, datetime, timedelta, timezone
 import httpx
 import pytest
 
-from calibrant.client import (
+from calibrant_client import (
     CalibrantRequestError,
     CalibrantUnavailableError,
     Client,

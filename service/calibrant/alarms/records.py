@@ -10,6 +10,7 @@ exactly when the change does.
 
 from __future__ import annotations
 
+import logging
 from datetime import datetime, timedelta
 from typing import Any
 
@@ -17,8 +18,10 @@ from calibrant.notify import outbox, payloads
 from calibrant.store import alarm_repo
 from calibrant.store.alarm_tables import OPEN, RESOLVED, Alarm, AlarmRule
 from calibrant.store.tables import Model
-from calibrant.store.unit import Session
+from calibrant.store.unit import Session, after_commit
 from calibrant.vocabulary.segments import ALL_SEGMENT
+
+log = logging.getLogger("calibrant.alarms")
 
 ALL_VERSIONS = ""  # stored version of a model-wide (feed) alarm: no posted version is empty
 
@@ -104,3 +107,26 @@ def _announce(session: Session, model: Model, alarm: Alarm, kind: str, now: date
         resolved_at=alarm.resolved_at, summary=alarm.summary,
     )
     outbox.enqueue(session, kind, data, model_id=model.id, at=now)
+    _log_change(session, model, alarm, kind)
+
+
+def stream_name(version: str, segment_key: str, segment_value: str) -> str:
+    """A stream as one word for a log line: ``<version>/<key>:<value>``; ``all_versions`` for a
+    model-wide stream, ``all`` for every case (``v3/all``, ``all_versions/depot:harbour``)."""
+    shown_version = "all_versions" if version == ALL_VERSIONS else version
+    shown_segment = "all" if segment_key == ALL_SEGMENT else f"{segment_key}:{segment_value}"
+    return f"{shown_version}/{shown_segment}"
+
+
+def _log_change(session: Session, model: Model, alarm: Alarm, kind: str) -> None:
+    """One structured line per opening or resolution, written only once the change is committed."""
+    fields = {
+        "event": kind,
+        "model": model.name,
+        "rule": alarm.rule_name,
+        "stream": stream_name(alarm.version, alarm.segment_key, alarm.segment_value),
+        "statistic": (alarm.evidence or {}).get("statistic"),
+        "alarm_id": alarm.id,
+    }
+    message = kind + " " + " ".join(f"{key}={value}" for key, value in fields.items() if key != "event")
+    after_commit(session, lambda: log.info(message, extra=fields))

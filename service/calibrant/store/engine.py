@@ -29,6 +29,11 @@ def make_engine(settings: Settings, **overrides: Any) -> Engine:
         "max_overflow": settings.db_pool_size,
         "pool_pre_ping": True,
     }
+    if not settings.postgres_prepared_statements:
+        # psycopg prepares a statement on the server after its 5th run on a connection; behind a
+        # transaction-mode pooler the next transaction may reach another server connection that has
+        # never seen it. None turns preparing off (deploy/README.md, "Connection poolers").
+        kwargs["connect_args"] = {"prepare_threshold": None}
     kwargs.update(overrides)
     return create_engine(url, **kwargs)
 

@@ -13,9 +13,9 @@ import time
 from collections.abc import Callable
 from typing import TypeVar
 
-from sqlalchemy import Connection, Engine, text
+from sqlalchemy import Connection, Engine, event, text
 from sqlalchemy.exc import OperationalError, SQLAlchemyError
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm import Session, SessionTransaction, sessionmaker
 
 __all__ = [
     "Connection",
@@ -23,6 +23,7 @@ __all__ = [
     "Engine",
     "Session",
     "SessionFactory",
+    "after_commit",
     "ping",
     "run_unit_of_work",
 ]
@@ -57,6 +58,37 @@ def run_unit_of_work(sessions: SessionFactory, work: Callable[[Session], T], att
                 raise
             return result
     raise AssertionError("unreachable")
+
+
+_AFTER_COMMIT = "calibrant_after_commit"
+
+
+def after_commit(session: Session, callback: Callable[[], None]) -> None:
+    """Call ``callback`` once the session's current transaction commits; never if it rolls back.
+
+    For side effects that must not claim what did not happen (a log line saying an
+    alarm opened): the change and the line then exist together or not at all.
+    """
+    pending: list[Callable[[], None]] | None = session.info.get(_AFTER_COMMIT)
+    if pending is None:
+        pending = session.info[_AFTER_COMMIT] = []
+        event.listen(session, "after_commit", _run_pending)
+        event.listen(session, "after_soft_rollback", _drop_pending)
+    pending.append(callback)
+
+
+def _run_pending(session: Session) -> None:
+    callbacks = session.info.get(_AFTER_COMMIT) or []
+    session.info[_AFTER_COMMIT] = []
+    for callback in callbacks:
+        callback()
+
+
+def _drop_pending(session: Session, previous_transaction: SessionTransaction) -> None:
+    # Any rollback of the outer transaction, even one with nothing to undo on the database; a
+    # savepoint rolled back inside it leaves the outer transaction's callbacks pending.
+    if not previous_transaction.nested:
+        session.info[_AFTER_COMMIT] = []
 
 
 def ping(engine: Engine) -> None:
