@@ -58,7 +58,7 @@ class ModelSettingsPatch(BaseModel):
     )
     reference: TrafficReference | None = None
     false_alarms_per_year: float | None = Field(
-        None, gt=0, le=365,
+        None, ge=0.001, le=365,
         description="Expected false alarms a year of all the model's rules together, when it is "
                     "well calibrated and its feeds are healthy (default 1).",
     )
