@@ -46,7 +46,7 @@ class Settings(BaseSettings):
         description="Oldest scored_at / observed_at accepted (RFC 3339 with offset).",
     )
     future_tolerance_hours: float = Field(
-        24.0, ge=0, le=24 * 366,
+        24.0, ge=0, le=24 * 3660,
         description="How far after the server's clock a scored_at / observed_at may lie.",
     )
     sqlite_synchronous: str = Field(

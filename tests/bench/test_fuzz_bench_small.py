@@ -17,3 +17,5 @@ def test_small_fuzz_finds_no_server_error(db: Database) -> None:
     assert report.cases >= 2 * operations  # at least one case of each path in each mode
     assert sum(report.statuses.values()) == report.cases
     assert report.server_errors == 0, "\n".join(report.lines())
+    assert report.long_range_status == 422
+    assert report.long_range_ms > 0

@@ -67,7 +67,7 @@ def seeded(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFact
         _truncate_all(engine)
     database = Database(request.param, url, engine)
     with make_client(database, clock=FixedClock(NOW), webhook_allow_private=True,
-                     webhook_sender="log") as client:
+                     webhook_sender="log", future_tolerance_hours=24) as client:  # the default
         seed(client)
         yield database, client
     engine.dispose()
