@@ -50,6 +50,7 @@ bench: $(STAMP)
 	$(BIN)/python -m tests.bench.null_year
 	$(BIN)/python -m tests.bench.null_year_service
 	$(BIN)/python -m tests.bench.hosmer_lemeshow_null
+	$(BIN)/python -m tests.bench.fuzz
 
 clean:
 	rm -rf $(VENV) var .pytest_cache

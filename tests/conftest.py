@@ -22,7 +22,7 @@ from fastapi.testclient import TestClient
 from hypothesis import settings as hypothesis_settings
 
 from calibrant.app import create_app
-from calibrant.clock import Clock
+from calibrant.clock import Clock, FixedClock
 from calibrant.config import Settings
 from calibrant.store import migrate
 from calibrant.store.engine import make_engine
@@ -119,7 +119,15 @@ def db(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[Database]:
     engine.dispose()
 
 
+# Tests replay streams posted ahead of a FixedClock that they then advance (outcomes before the
+# clock reaches them), so under a FixedClock a stored instant may lie up to ten years past it
+# unless a test asks for a tolerance. The default of one day is tested in tests/input.
+REPLAY_TOLERANCE_HOURS = 24 * 3660
+
+
 def make_client(db: Database, clock: Clock | None = None, **overrides: object) -> TestClient:
+    if isinstance(clock, FixedClock):
+        overrides.setdefault("future_tolerance_hours", REPLAY_TOLERANCE_HOURS)
     app = create_app(db.settings(**overrides), engine=db.engine, clock=clock)
     return TestClient(app)
 

@@ -15,6 +15,7 @@ from fastapi import FastAPI
 import calibrant
 from calibrant import jobs, scheduler
 from calibrant.api import problems
+from calibrant.api.request_gate import RequestGate
 from calibrant.api.routes import (
     alarms,
     health,
@@ -99,6 +100,7 @@ def create_app(
     )
     app.state.runtime = runtime  # read back only by api.deps.get_runtime
     problems.install(app)
+    app.add_middleware(RequestGate, max_body_bytes=settings.max_body_bytes)
     app.include_router(health.router)
     app.include_router(openmetrics.router)
     app.include_router(ingest.router)

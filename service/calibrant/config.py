@@ -7,6 +7,7 @@ composition roots (``cli``, tests) and handed down explicitly.
 from __future__ import annotations
 
 import ipaddress
+from datetime import UTC, datetime
 from enum import StrEnum
 
 from pydantic import Field, ValidationInfo, field_validator, model_validator
@@ -40,6 +41,14 @@ class Settings(BaseSettings):
     )
     max_body_bytes: int = Field(16 * 1024 * 1024, ge=1024, description="Largest request body.")
     max_batch_items: int = Field(10_000, ge=1, le=100_000, description="Largest ingest batch.")
+    earliest_instant: datetime = Field(
+        datetime(2000, 1, 1, tzinfo=UTC),
+        description="Oldest scored_at / observed_at accepted (RFC 3339 with offset).",
+    )
+    future_tolerance_hours: float = Field(
+        24.0, ge=0, le=24 * 3660,
+        description="How far after the server's clock a scored_at / observed_at may lie.",
+    )
     sqlite_synchronous: str = Field(
         "FULL",
         description="SQLite synchronous PRAGMA: FULL survives power loss, NORMAL only crashes.",
@@ -107,6 +116,15 @@ class Settings(BaseSettings):
             # Plain postgresql:// would pick psycopg2, which we do not ship.
             value = "postgresql+psycopg://" + value.removeprefix("postgresql://")
         return value
+
+    @field_validator("earliest_instant")
+    @classmethod
+    def _aware_and_plausible(cls, value: datetime) -> datetime:
+        if value.tzinfo is None:
+            raise ValueError("needs a UTC offset, e.g. 2000-01-01T00:00:00Z")
+        if not 1900 <= value.astimezone(UTC).year <= 2999:
+            raise ValueError("must lie in the years 1900 to 2999")
+        return value.astimezone(UTC)
 
     @field_validator("sqlite_synchronous")
     @classmethod

@@ -27,7 +27,7 @@ from calibrant.app import create_app
 from calibrant.clock import FixedClock
 from calibrant.notify.senders import RecordingSender
 from tests.alarms.streams import T0, Day, iso, post_day, post_outcomes, refresh
-from tests.conftest import Database
+from tests.conftest import REPLAY_TOLERANCE_HOURS, Database
 from tests.notify.helpers import loopback_resolver
 
 MODEL = "walk"
@@ -166,7 +166,8 @@ def _client(db: Database, clock: FixedClock, sender: RecordingSender,
             responses: list[tuple[str, httpx.Response]]) -> TestClient:
     """The app with a recording webhook sender (hence create_app, not make_client); every
     response it gives is kept for the walk."""
-    app = create_app(db.settings(webhook_allow_private=True), engine=db.engine, clock=clock,
+    app = create_app(db.settings(webhook_allow_private=True, future_tolerance_hours=REPLAY_TOLERANCE_HOURS),
+                     engine=db.engine, clock=clock,
                      webhook_sender=sender, resolver=loopback_resolver)
 
     def keep(response: httpx.Response) -> None:

@@ -18,6 +18,8 @@ from tests.conftest import Database, make_client
 SMALL_LIMIT = 2048
 REAL_LIMIT = 16 * 1024 * 1024
 
+JSON = {"content-type": "application/json"}  # the only media type a body may have
+
 
 def _padded_body(size: int) -> bytes:
     """A valid one-prediction body padded with JSON whitespace to exactly ``size`` bytes."""
@@ -29,14 +31,16 @@ def _padded_body(size: int) -> bytes:
 @pytest.mark.parametrize("endpoint", ["predictions", "outcomes"])
 def test_body_over_the_limit_is_413(db: Database, endpoint: str) -> None:
     with make_client(db, max_body_bytes=SMALL_LIMIT) as client:
-        response = client.post(f"/v1/models/churn/{endpoint}", content=_padded_body(SMALL_LIMIT + 1))
+        response = client.post(f"/v1/models/churn/{endpoint}", content=_padded_body(SMALL_LIMIT + 1),
+                               headers=JSON)
     assert_problem(response, 413)
     assert_nothing_stored(db)
 
 
 def test_body_exactly_at_the_limit_is_accepted(db: Database) -> None:
     with make_client(db, max_body_bytes=SMALL_LIMIT) as client:
-        response = client.post("/v1/models/churn/predictions", content=_padded_body(SMALL_LIMIT))
+        response = client.post("/v1/models/churn/predictions", content=_padded_body(SMALL_LIMIT),
+                               headers=JSON)
     assert response.status_code == 200, response.text
     assert count_rows(db, "predictions") == 1
 
@@ -49,14 +53,15 @@ def test_chunked_body_without_length_is_cut_off_at_the_limit(db: Database) -> No
             yield body[start : start + 512]
 
     with make_client(db, max_body_bytes=SMALL_LIMIT) as client:
-        response = client.post("/v1/models/churn/predictions", content=chunks())
+        response = client.post("/v1/models/churn/predictions", content=chunks(), headers=JSON)
     assert_problem(response, 413)
     assert_nothing_stored(db)
 
 
 def test_default_limit_refuses_a_body_over_16_mib(db: Database) -> None:
     with make_client(db) as client:
-        response = client.post("/v1/models/churn/predictions", content=_padded_body(REAL_LIMIT + 1))
+        response = client.post("/v1/models/churn/predictions", content=_padded_body(REAL_LIMIT + 1),
+                               headers=JSON)
     assert_problem(response, 413)
     assert_nothing_stored(db)
 
@@ -76,7 +81,7 @@ def test_model_settings_body_over_its_limit_is_413(db: Database) -> None:
 )
 def test_body_that_is_not_json_is_422(db: Database, raw: bytes) -> None:
     with make_client(db) as client:
-        body = assert_problem(client.post("/v1/models/churn/predictions", content=raw), 422)
+        body = assert_problem(client.post("/v1/models/churn/predictions", content=raw, headers=JSON), 422)
     assert [(e["index"], e["field"]) for e in body["errors"]] == [(None, "body")]
     assert_nothing_stored(db)
 
@@ -93,7 +98,7 @@ def test_body_that_is_not_json_is_422(db: Database, raw: bytes) -> None:
 )
 def test_body_with_wrong_shape_is_422(db: Database, doc: object, fields: list[str]) -> None:
     with make_client(db) as client:
-        response = client.post("/v1/models/churn/predictions", content=orjson.dumps(doc))
+        response = client.post("/v1/models/churn/predictions", content=orjson.dumps(doc), headers=JSON)
     body = assert_problem(response, 422)
     assert sorted(e["field"] for e in body["errors"]) == fields
     assert all(e["index"] is None for e in body["errors"])

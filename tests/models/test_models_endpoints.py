@@ -136,7 +136,9 @@ def test_clearing_horizon_while_implicit_negatives_is_on_is_refused(db: Database
 
 def test_put_body_that_is_not_json_is_422(db: Database) -> None:
     with make_client(db) as client:
-        response = client.put("/v1/models/churn", content=b"{description: x}")
+        response = client.put(
+            "/v1/models/churn", content=b"{description: x}", headers={"content-type": "application/json"}
+        )
     assert_problem(response, 422)
     assert_nothing_stored(db)
 

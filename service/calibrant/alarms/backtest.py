@@ -25,6 +25,7 @@ from calibrant.alarms.service import ensure_defaults
 from calibrant.errors import NotFound, invalid
 from calibrant.models.service import require
 from calibrant.rollup.compute import SegmentBook
+from calibrant.rollup.periods import Granularity, period_count
 from calibrant.store import alarm_repo, rollup_repo
 from calibrant.store.alarm_tables import AlarmRule, ChartStream
 from calibrant.store.mature_cases import mature_case_windows
@@ -33,6 +34,7 @@ from calibrant.store.unit import Session
 from calibrant.vocabulary.instants import required_instant
 
 MAX_CROSSINGS = 1000
+MAX_PERIODS = 1000  # the same cap as a metrics query
 
 
 def backtest(session: Session, model_name: str, rule_name: str, *, start: str | None, end: str | None,
@@ -49,6 +51,7 @@ def backtest(session: Session, model_name: str, rule_name: str, *, start: str | 
     if evaluation == "chart":
         crossings = replay_chart(session, model, rule, lo, min(hi, now), now)
     elif evaluation == "window":
+        _check_period_count(rule, lo, min(hi, now))
         share = budget.share_as_enabled(session, model, rule)
         report = windows.evaluate_rule(session, model, rule, now, share=share, start=lo, end=hi,
                                        dry_run=True)
@@ -61,6 +64,15 @@ def backtest(session: Session, model_name: str, rule_name: str, *, start: str | 
                               "history cannot reproduce; backtests cover charts and window rules")
     return {"model": model.name, "rule": rule.name, "kind": Kind(rule.kind).value, "start": lo, "end": hi,
             "crossing_count": len(crossings), "crossings": crossings[:MAX_CROSSINGS], "sent": 0}
+
+
+def _check_period_count(rule: AlarmRule, start: datetime, end: datetime) -> None:
+    """A window replay judges one period at a time: refuse a range of more than MAX_PERIODS."""
+    params: Any = kinds.spec(rule.kind).params.model_validate(rule.params)  # a window kind's params
+    grain = Granularity(params.granularity)
+    wanted = period_count(start, end, grain)
+    if wanted > MAX_PERIODS:
+        raise invalid("start", f"{wanted} {grain.value} periods; a backtest replays at most {MAX_PERIODS}")
 
 
 def replay_chart(session: Session, model: Model, rule: AlarmRule, start: datetime, end: datetime,

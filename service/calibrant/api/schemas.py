@@ -149,6 +149,7 @@ PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
     401: {"description": "Missing or unknown API key (problem details)."},
     403: {"description": "The key's scope or model does not allow this (problem details)."},
     413: {"description": "Body larger than the limit (problem details)."},
+    415: {"description": "A body not sent as application/json, plain or gzip (problem details)."},
     422: {"description": "Invalid input; `errors` lists {index, field, message} (problem details)."},
 }
 

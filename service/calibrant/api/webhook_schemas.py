@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Literal, get_args
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, field_validator
 
 from calibrant.api.instant import Instant
 from calibrant.vocabulary.names import NAME_PATTERN
@@ -24,7 +24,11 @@ class WebhookCreate(BaseModel):
 
 
 class WebhookUpdate(BaseModel):
-    """Merge: an absent field is unchanged; ``model: null`` removes the model filter."""
+    """Merge: an absent field is unchanged; ``model: null`` removes the model filter.
+
+    ``url``, ``description`` and ``types`` may be absent but not null: a receiver always has
+    them (the None defaults only mark "absent"; a validator runs only on sent values).
+    """
 
     model_config = ConfigDict(extra="forbid")
 
@@ -32,6 +36,13 @@ class WebhookUpdate(BaseModel):
     description: str | None = Field(None, max_length=500)
     model: str | None = Field(None, pattern=NAME_PATTERN)
     types: list[EventType] | None = Field(None, min_length=1, max_length=10)
+
+    @field_validator("url", "description", "types")
+    @classmethod
+    def _not_null(cls, value: object) -> object:
+        if value is None:
+            raise ValueError("must not be null; leave the field out to keep its value")
+        return value
 
 
 class WebhookOut(BaseModel):

@@ -17,7 +17,7 @@ import orjson
 
 from calibrant.errors import FieldError, InvalidInput
 from calibrant.store.batches import OutcomeColumns, PredictionColumns
-from calibrant.vocabulary.instants import parse_instant
+from calibrant.vocabulary.instants import InstantWindow, parse_instant_within
 from calibrant.vocabulary.segments import is_tag_key
 
 MAX_ID_LENGTH = 200
@@ -113,8 +113,10 @@ def _check_tags(value: object, index: int, errors: list[FieldError]) -> str | No
     return orjson.dumps(value, option=orjson.OPT_SORT_KEYS).decode()
 
 
-def parse_predictions(body: bytes, max_items: int) -> PredictionColumns:
-    """Validate a predictions body; raise ``InvalidInput`` listing every bad item."""
+def parse_predictions(body: bytes, max_items: int, window: InstantWindow) -> PredictionColumns:
+    """Validate a predictions body; raise ``InvalidInput`` listing every bad item.
+
+    ``scored_at`` must lie in ``window`` (``vocabulary.instants``)."""
     items = _load_items(body, "predictions", max_items)
     errors: list[FieldError] = []
     case_ids: list[str] = []
@@ -141,7 +143,7 @@ def parse_predictions(body: bytes, max_items: int) -> PredictionColumns:
         elif not (math.isfinite(p) and 0.0 <= p <= 1.0):
             errors.append(FieldError(index, "probability", f"{p!r} is outside [0, 1]"))
 
-        when = parse_instant(item.get("scored_at"))
+        when = parse_instant_within(item.get("scored_at"), window)
         if isinstance(when, str):
             errors.append(FieldError(index, "scored_at", when))
 
@@ -170,8 +172,10 @@ def parse_predictions(body: bytes, max_items: int) -> PredictionColumns:
     return PredictionColumns(case_ids, versions, probabilities, times, tags)
 
 
-def parse_outcomes(body: bytes, max_items: int) -> OutcomeColumns:
-    """Validate an outcomes body; raise ``InvalidInput`` listing every bad item."""
+def parse_outcomes(body: bytes, max_items: int, window: InstantWindow) -> OutcomeColumns:
+    """Validate an outcomes body; raise ``InvalidInput`` listing every bad item.
+
+    ``observed_at`` must lie in ``window`` (``vocabulary.instants``)."""
     items = _load_items(body, "outcomes", max_items)
     errors: list[FieldError] = []
     case_ids: list[str] = []
@@ -193,7 +197,7 @@ def parse_outcomes(body: bytes, max_items: int) -> OutcomeColumns:
         elif label not in (0, 1) or isinstance(label, float):
             errors.append(FieldError(index, "label", "required: 0, 1, true or false"))
             label = 0
-        when = parse_instant(item.get("observed_at"))
+        when = parse_instant_within(item.get("observed_at"), window)
         if isinstance(when, str):
             errors.append(FieldError(index, "observed_at", when))
         first = seen.setdefault(case_id, index)

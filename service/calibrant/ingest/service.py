@@ -15,6 +15,7 @@ from calibrant.store import audit, models_repo
 from calibrant.store.ingest_writes import OutcomeWrite, insert_predictions, upsert_outcomes
 from calibrant.store.tables import Model
 from calibrant.store.unit import Session
+from calibrant.vocabulary.instants import InstantWindow
 from calibrant.vocabulary.names import check_name
 
 
@@ -40,18 +41,21 @@ def _model_for_ingest(session: Session, name: str, clock: Clock, actor: str) -> 
 
 
 def ingest_predictions(
-    session: Session, model_name: str, body: bytes, *, max_items: int, clock: Clock, actor: str
+    session: Session, model_name: str, body: bytes, *, max_items: int, window: InstantWindow,
+    clock: Clock, actor: str
 ) -> PredictionResult:
     """Store a batch of predictions, all or nothing.
 
-    Raises ``InvalidInput`` (422) for any bad item and ``Conflict`` (409) when a
-    (version, id) already exists with different content.
+    Raises ``InvalidInput`` (422) for any bad item (``scored_at`` outside
+    ``window`` included) and ``Conflict`` (409) when a
+    (version, id) already exists with different content. An empty batch writes
+    nothing, not even the model it names.
     """
     check_name(model_name)
-    batch = parse_predictions(body, max_items)
-    model = _model_for_ingest(session, model_name, clock, actor)
+    batch = parse_predictions(body, max_items, window)
     if not len(batch):
         return PredictionResult(0, 0)
+    model = _model_for_ingest(session, model_name, clock, actor)
     written = insert_predictions(session.connection(), model.id, batch, clock.now())
     if written.conflicts:
         raise Conflict(
@@ -63,12 +67,17 @@ def ingest_predictions(
 
 
 def ingest_outcomes(
-    session: Session, model_name: str, body: bytes, *, max_items: int, clock: Clock, actor: str
+    session: Session, model_name: str, body: bytes, *, max_items: int, window: InstantWindow,
+    clock: Clock, actor: str
 ) -> OutcomeWrite:
-    """Store a batch of outcomes: new labels, duplicates and corrections (history kept)."""
+    """Store a batch of outcomes: new labels, duplicates and corrections (history kept).
+
+    ``observed_at`` must lie in ``window``; an empty batch
+    writes nothing, not even the model it names.
+    """
     check_name(model_name)
-    batch = parse_outcomes(body, max_items)
-    model = _model_for_ingest(session, model_name, clock, actor)
+    batch = parse_outcomes(body, max_items, window)
     if not len(batch):
         return OutcomeWrite(0, 0, 0, [])
+    model = _model_for_ingest(session, model_name, clock, actor)
     return upsert_outcomes(session.connection(), model.id, batch, clock.now())

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from datetime import datetime
 from typing import Annotated, Any, Literal
 
 from pydantic import (
@@ -14,6 +15,7 @@ from pydantic import (
     model_validator,
 )
 
+from calibrant.vocabulary.instants import QUERY_EARLIEST, QUERY_LATEST
 from calibrant.vocabulary.segments import TAG_KEY_PATTERN
 
 MAX_SEGMENT_KEYS = 4
@@ -30,6 +32,15 @@ class TrafficReference(BaseModel):
     start: AwareDatetime
     end: AwareDatetime
     version: str | None = Field(None, description="Restrict to one version; all versions if absent.")
+
+    @field_validator("start", "end")
+    @classmethod
+    def _in_query_years(cls, value: datetime) -> datetime:
+        # The reference range is queried like a metrics range: the same years keep its date
+        # arithmetic away from the ends of the calendar.
+        if not QUERY_EARLIEST <= value < QUERY_LATEST:
+            raise ValueError("must lie in the years 1900 to 2999")
+        return value
 
     @model_validator(mode="after")
     def _ordered(self) -> TrafficReference:
@@ -58,7 +69,7 @@ class ModelSettingsPatch(BaseModel):
     )
     reference: TrafficReference | None = None
     false_alarms_per_year: float | None = Field(
-        None, gt=0, le=365,
+        None, ge=0.001, le=365,
         description="Expected false alarms a year of all the model's rules together, when it is "
                     "well calibrated and its feeds are healthy (default 1).",
     )

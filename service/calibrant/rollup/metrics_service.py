@@ -10,7 +10,7 @@ from typing import Any
 from calibrant.errors import FieldError, InvalidInput, invalid
 from calibrant.models.service import require
 from calibrant.rollup import query
-from calibrant.rollup.periods import Granularity, periods
+from calibrant.rollup.periods import Granularity, period_count, periods
 from calibrant.rollup.references import reference_summary
 from calibrant.stats.reliability import ReliabilityDiagram
 from calibrant.stats.result import Estimate
@@ -99,9 +99,10 @@ def metrics(
             raise invalid("window", "must be Nd with 1 <= N <= 366, e.g. window=28d")
         window_days = int(match.group(1))
     sel = _selection(model, start, end, version, tag)
+    wanted = period_count(sel.start, sel.end, grain)
+    if wanted > MAX_PERIODS:  # before building any: a century of days is 36,525 of them
+        raise invalid("start", f"{wanted} periods; at most {MAX_PERIODS} per query")
     spans = periods(sel.start, sel.end, grain, window_days)
-    if len(spans) > MAX_PERIODS:
-        raise invalid("start", f"{len(spans)} periods; at most {MAX_PERIODS} per query")
     conn = session.connection()
     boundary = query.maturity_boundary(model, now)
     first = min(p.data_start for p in spans)

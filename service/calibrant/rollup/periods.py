@@ -51,6 +51,22 @@ def _next(start: datetime, granularity: Granularity) -> datetime:
     )
 
 
+def period_count(start: datetime, end: datetime, granularity: Granularity) -> int:
+    """How many periods ``periods(start, end, granularity)`` would build, without building one.
+
+    Callers check it against their cap first: a range of centuries would otherwise build
+    hundreds of thousands of periods before any cap could apply.
+    """
+    if end <= start:
+        return 0
+    first = _floor(start, granularity)
+    last = _floor(end - timedelta(microseconds=1), granularity)  # the period holding end's last instant
+    if granularity is Granularity.MONTH:
+        return (last.year - first.year) * 12 + last.month - first.month + 1
+    step = 7 if granularity is Granularity.WEEK else 1
+    return (last - first).days // step + 1
+
+
 def periods(
     start: datetime, end: datetime, granularity: Granularity, window_days: int | None = None
 ) -> list[Period]:

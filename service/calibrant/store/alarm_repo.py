@@ -14,6 +14,7 @@ from sqlalchemy.orm import Session
 from calibrant.store.alarm_tables import OPEN, Alarm, AlarmModelState, AlarmRule, ChartStream
 from calibrant.store.rollup_tables import BucketSummary, DirtyBucket
 from calibrant.store.tables import Model, Prediction
+from calibrant.store.types import BIG_INTEGER_IDS
 
 
 # ----------------------------------------------------------------------------- rules
@@ -60,6 +61,8 @@ def open_alarms_of_rule(session: Session, rule_id: int) -> list[Alarm]:
 
 
 def alarm(session: Session, model_id: int, alarm_id: int) -> Alarm | None:
+    if alarm_id not in BIG_INTEGER_IDS:
+        return None
     return session.scalars(select(Alarm).where(Alarm.model_id == model_id, Alarm.id == alarm_id)
                            .with_for_update()).one_or_none()
 

@@ -45,3 +45,8 @@ def case_id_type(length: int = 200) -> String:
 
 # SQLite only auto-increments a column declared exactly INTEGER PRIMARY KEY.
 BigIntPK = BigInteger().with_variant(Integer(), "sqlite")
+
+# The ids each key column can hold. A looked-up id outside them names no row; sending it to
+# the database would be an error (an int beyond 64 bits cannot even be bound on SQLite).
+INTEGER_IDS = range(-(2**31), 2**31)
+BIG_INTEGER_IDS = range(-(2**63), 2**63)

@@ -9,6 +9,7 @@ from sqlalchemy import case, delete, select, update
 from sqlalchemy.engine import CursorResult
 from sqlalchemy.orm import Session
 
+from calibrant.store.types import INTEGER_IDS
 from calibrant.store.webhook_tables import WebhookTarget
 
 
@@ -38,6 +39,8 @@ def create(
 
 
 def get(session: Session, target_id: int) -> WebhookTarget | None:
+    if target_id not in INTEGER_IDS:  # webhook_targets.id is a 32-bit integer
+        return None
     return session.get(WebhookTarget, target_id)
 
 

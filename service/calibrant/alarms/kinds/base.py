@@ -24,6 +24,10 @@ Granularity = Literal["day", "week", "month"]
 EVALUATIONS_PER_YEAR = {"day": 365.25, "week": 365.25 / 7, "month": 12.0}
 
 
+# Smallest budget weight: a share of B × w / Σw must stay a positive float (5e-324 underflows to 0).
+MIN_BUDGET_WEIGHT = 0.001
+
+
 class Params(BaseModel):
     """Every kind's parameters: an unknown field is an error, never silently ignored."""
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 from pydantic import Field, model_validator
 
-from calibrant.alarms.kinds.base import ChartKind, Params, always
+from calibrant.alarms.kinds.base import MIN_BUDGET_WEIGHT, ChartKind, Params, always
 from calibrant.stats.cusum import UPPER_ODDS_RATIO, CusumState, CusumStep, advance
 from calibrant.stats.cusum_design import RECOMMENDED_MIN_RISKS
 
@@ -22,7 +22,7 @@ class ChartParams(Params):
         UPPER_ODDS_RATIO, gt=0, description="R_A: 2 watches for more events, ½ for fewer"
     )
     budget_weight: float = Field(
-        2.0, gt=0, le=100, description="this rule's weight in the model's false-alarm budget"
+        2.0, ge=MIN_BUDGET_WEIGHT, le=100, description="this rule's weight in the model's false-alarm budget"
     )
     min_design_cases: int = Field(RECOMMENDED_MIN_RISKS, ge=200, le=100_000)
     design_sample: int = Field(5000, ge=200, le=100_000)

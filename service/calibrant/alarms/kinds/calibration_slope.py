@@ -16,6 +16,7 @@ from pydantic import Field, model_validator
 from scipy.stats import norm
 
 from calibrant.alarms.kinds.base import (
+    MIN_BUDGET_WEIGHT,
     Decision,
     Granularity,
     Params,
@@ -33,7 +34,8 @@ class CalibrationSlopeParams(Params):
     upper: float = Field(1.2, gt=1, description="effect floor above 1: alarm only for a slope over it")
     min_labeled: int = Field(200, ge=20)
     min_per_class: int = Field(10, ge=1)
-    budget_weight: float = Field(1.0, gt=0, le=100, description="weight in the model's false-alarm budget")
+    budget_weight: float = Field(1.0, ge=MIN_BUDGET_WEIGHT, le=100,
+                                 description="weight in the model's false-alarm budget")
 
     @model_validator(mode="after")
     def _check(self) -> CalibrationSlopeParams:

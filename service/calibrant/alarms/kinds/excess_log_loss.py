@@ -11,6 +11,7 @@ from __future__ import annotations
 from pydantic import Field
 
 from calibrant.alarms.kinds.base import (
+    MIN_BUDGET_WEIGHT,
     Decision,
     Granularity,
     Params,
@@ -27,7 +28,8 @@ class ExcessLogLossParams(Params):
     min_relative_effect: float = Field(0.05, ge=0, description="excess ≥ this × expected log-loss")
     min_labeled: int = Field(200, ge=20)
     min_per_class: int = Field(10, ge=1)
-    budget_weight: float = Field(2.0, gt=0, le=100, description="weight in the model's false-alarm budget")
+    budget_weight: float = Field(2.0, ge=MIN_BUDGET_WEIGHT, le=100,
+                                 description="weight in the model's false-alarm budget")
 
 
 def describe(params: ExcessLogLossParams) -> dict[str, str]:

@@ -13,6 +13,7 @@ from pydantic import Field, model_validator
 from scipy.stats import norm
 
 from calibrant.alarms.kinds.base import (
+    MIN_BUDGET_WEIGHT,
     Decision,
     Granularity,
     Params,
@@ -33,7 +34,8 @@ class ThresholdParams(Params):
     interval_excludes: float | None = Field(
         None, description="alarm only when a two-sided test at the budget's level also rejects this value"
     )
-    budget_weight: float = Field(1.0, gt=0, le=100, description="weight in the model's false-alarm budget "
+    budget_weight: float = Field(1.0, ge=MIN_BUDGET_WEIGHT, le=100,
+                                 description="weight in the model's false-alarm budget "
                                  "(only with interval_excludes: bounds alone are outside the budget)")
     min_n: int = Field(100, ge=1)
     granularity: Granularity = "week"

@@ -10,6 +10,7 @@ from __future__ import annotations
 from pydantic import Field
 
 from calibrant.alarms.kinds.base import (
+    MIN_BUDGET_WEIGHT,
     Decision,
     Granularity,
     Params,
@@ -26,7 +27,8 @@ class DriftParams(Params):
     granularity: Granularity = "week"
     min_psi: float = Field(0.1, ge=0, description="effect floor (0.1: common practice, no published source)")
     min_predictions: int = Field(100, ge=10)
-    budget_weight: float = Field(1.0, gt=0, le=100, description="weight in the model's false-alarm budget")
+    budget_weight: float = Field(1.0, ge=MIN_BUDGET_WEIGHT, le=100,
+                                 description="weight in the model's false-alarm budget")
 
 
 def describe(params: DriftParams) -> dict[str, str]:

@@ -52,7 +52,7 @@ from typing import Any
 from pydantic import Field
 from scipy.stats import hypergeom
 
-from calibrant.alarms.kinds.base import Decision, FeedInputs, FeedKind, LabelCounts, Params
+from calibrant.alarms.kinds.base import MIN_BUDGET_WEIGHT, Decision, FeedInputs, FeedKind, LabelCounts, Params
 
 SILENCE = "prediction_silence"
 ARRIVAL = "outcome_arrival"
@@ -67,7 +67,8 @@ class StarvationParams(Params):
     min_rate_ratio: float = Field(0.5, gt=0, le=1,
                                   description="outcome_arrival effect floor: recent labeled share below "
                                               "this × the history's (common practice, no published source)")
-    budget_weight: float = Field(1.0, gt=0, le=100, description="weight in the model's false-alarm budget "
+    budget_weight: float = Field(1.0, ge=MIN_BUDGET_WEIGHT, le=100,
+                                 description="weight in the model's false-alarm budget "
                                  "(outcome_arrival only: prediction_silence is a condition, outside it)")
 
 

@@ -20,6 +20,7 @@ from calibrant.api.schemas import (
     request_body,
 )
 from calibrant.ingest import service
+from calibrant.vocabulary.instants import InstantWindow
 
 router = APIRouter(prefix="/v1/models/{model}", tags=["ingest"])
 T = TypeVar("T")
@@ -66,6 +67,7 @@ async def _ingest(
             model,
             body,
             max_items=runtime.settings.max_batch_items,
+            window=InstantWindow.of(runtime.settings, runtime.clock.now()),
             clock=runtime.clock,
             actor=caller.actor,
         )
