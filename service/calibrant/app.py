@@ -15,13 +15,14 @@ from fastapi import FastAPI
 import calibrant
 from calibrant import jobs, scheduler
 from calibrant.api import problems
-from calibrant.api.routes import alarms, health, ingest, metrics, models, refresh, rules, webhooks
+from calibrant.api.routes import alarms, audit, health, ingest, metrics, models, refresh, rules, webhooks
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import add_body_schemas
 from calibrant.clock import Clock, SystemClock
 from calibrant.config import Settings
 from calibrant.notify.senders import Sender, sender_from_settings
 from calibrant.notify.targets import Resolver, system_resolver
+from calibrant.pages.router import PageHost, build_router
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.unit import Engine
 
@@ -97,6 +98,8 @@ def create_app(
     app.include_router(webhooks.router)
     app.include_router(rules.router)
     app.include_router(alarms.router)
+    app.include_router(audit.router)
+    app.include_router(build_router(PageHost(settings, runtime.sessions, clock)))
 
     def openapi() -> dict:
         if app.openapi_schema is None:
