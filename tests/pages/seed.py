@@ -57,7 +57,8 @@ def seed(db: Database) -> Seeded:
                 refresh(client)
         quiet = [{"id": f"q{i}", "probability": 0.2, "scored_at": iso(clock.now() - timedelta(hours=2))}
                  for i in range(5)]
-        assert client.post(f"/v1/models/{QUIET_MODEL}/predictions", json={"predictions": quiet}).status_code == 200
+        posted = client.post(f"/v1/models/{QUIET_MODEL}/predictions", json={"predictions": quiet})
+        assert posted.status_code == 200, posted.text
         alarms = client.get(f"/v1/models/{MODEL}/alarms", params={"state": "open"}).json()["alarms"]
     drifting = [a for a in alarms if a["segment"] == {"key": DRIFTING[0], "value": DRIFTING[1]}]
     assert [a["rule"] for a in drifting] == ["calibration-chart-upper"], alarms

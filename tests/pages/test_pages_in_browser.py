@@ -15,7 +15,11 @@ from pathlib import Path
 import pytest
 from playwright.sync_api import Browser, Page, expect
 
-from tests.conftest import Database
+from calibrant.clock import FixedClock
+from tests.alarms.streams import T0, iso
+from tests.api.issued_keys import create_key
+from tests.api.payloads import post_predictions, prediction
+from tests.conftest import Database, make_client
 from tests.pages.browser import PageWatch, screenshot
 from tests.pages.live_server import serving
 from tests.pages.seed import DRIFTING, MODEL, QUIET_MODEL, SETTINGS, seed
@@ -99,4 +103,31 @@ def test_the_render_check_fails_when_the_plotting_script_is_missing(db: Database
         with pytest.raises(AssertionError):
             expect(page.get_by_test_id("plot-cusum")).to_have_attribute("data-rendered", "true", timeout=2000)
         expect(page.get_by_test_id("plot-cusum").locator("svg.main-svg")).to_have_count(0)
+        context.close()
+
+
+def test_signing_in_in_the_browser_opens_the_pages_and_never_the_api(
+        db: Database, browser: Browser, monkeypatch: pytest.MonkeyPatch,
+        capsys: pytest.CaptureFixture) -> None:
+    clock = FixedClock(T0)
+    with make_client(db, clock=clock) as client:
+        assert post_predictions(client, QUIET_MODEL, [prediction("a", scored_at=iso(T0))]).status_code == 200
+    token = create_key(db, monkeypatch, capsys, "read")
+    with serving(db, clock, auth="required") as base:
+        context = browser.new_context()
+        page = context.new_page()
+        watch = PageWatch(host=base.removeprefix("http://"))
+        watch.attach(page)
+        page.goto(base + "/")
+        page.wait_for_url(f"{base}/sign-in?next=%2F")
+        page.get_by_test_id("key-input").fill(token)
+        page.get_by_test_id("sign-in-button").click()
+        page.wait_for_url(f"{base}/")
+        expect(page.get_by_test_id("model-row")).to_have_count(1)
+        screenshot(page, SCREENSHOTS / db.dialect, "signed-in")
+        (cookie,) = context.cookies()
+        assert (cookie["httpOnly"], cookie["sameSite"]) == (True, "Strict")
+        assert page.evaluate("document.cookie") == ""  # the page's scripts cannot read it
+        assert page.request.get(base + "/v1/models").status == 401  # the cookie is sent, and refused
+        watch.assert_clean()
         context.close()

@@ -14,7 +14,9 @@ class AuditEventOut(BaseModel):
     at: Instant
     actor: str = Field(description="'key:<key_id>', 'local' (loopback without keys) or 'cli'.")
     action: str = Field(description="What happened, e.g. model.settings_changed, rule.changed, key.revoked.")
-    target: str = Field(description="What it happened to: a model, model/rule, model/alarm id, key or webhook.")
+    target: str = Field(
+        description="What it happened to: a model, model/rule, model/alarm id, key or webhook."
+    )
     model: str | None = Field(description="The model concerned; null for keys and model-less webhooks.")
     detail: dict[str, Any] = Field(description="What changed, from and to; never a secret.")
 

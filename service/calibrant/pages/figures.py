@@ -146,7 +146,8 @@ def reliability(diagram: dict[str, Any]) -> Figure:
             "layout": _layout("observed rate", x_title="mean predicted probability", height=320,
                               xaxis={"range": [0, edge], "gridcolor": GRID,
                                      "title": {"text": "mean predicted probability"}},
-                              yaxis={"range": [0, edge], "gridcolor": GRID, "title": {"text": "observed rate"}})}
+                              yaxis={"range": [0, edge], "gridcolor": GRID,
+                                     "title": {"text": "observed rate"}})}
 
 
 def cusum(evidence: dict[str, Any]) -> Figure:

@@ -91,8 +91,8 @@ def build_router(host: PageHost) -> APIRouter:
 
     def html(name: str, context: dict[str, Any], *, status: int = 200, started: float | None = None,
              reader: PageReader | None = None) -> HTMLResponse:
-        body = render(name, {**context, "reader": reader, "signed_in": bool(reader and reader.actor != "local"),
-                             "figure_json": figure_json})
+        signed_in = bool(reader and reader.actor != "local")
+        body = render(name, {**context, "reader": reader, "signed_in": signed_in, "figure_json": figure_json})
         headers = dict(SECURITY_HEADERS)
         if started is not None:  # the page's own time in the server, read by tests/bench/pages.py
             headers["Server-Timing"] = f"page;dur={(time.perf_counter() - started) * 1000:.1f}"
@@ -110,7 +110,8 @@ def build_router(host: PageHost) -> APIRouter:
         now = host.clock.now()
 
         def work(session: Session) -> tuple[PageReader | None, dict[str, Any] | CalibrantError]:
-            reader = reader_from_cookie(session, request, now) if host.settings.keys_required else LOCAL_READER
+            reader = (reader_from_cookie(session, request, now) if host.settings.keys_required
+                      else LOCAL_READER)
             if reader is None:
                 return None, {}
             if model is not None and not reader.may_read(model):
@@ -139,7 +140,8 @@ def build_router(host: PageHost) -> APIRouter:
 
     @router.get("/models/{model}", response_class=HTMLResponse)
     async def model_page(request: Request, model: str, granularity: str | None = None,
-                         start: str | None = None, end: str | None = None, tag: str | None = None) -> Response:
+                         start: str | None = None, end: str | None = None,
+                         tag: str | None = None) -> Response:
         def view(session: Session, _reader: PageReader) -> dict[str, Any]:
             now = host.clock.now()
             span = views.page_range(granularity, start, end, now)
@@ -156,7 +158,8 @@ def build_router(host: PageHost) -> APIRouter:
 
     @router.get("/sign-in", response_class=HTMLResponse)
     async def sign_in_page(next: str = "/") -> Response:
-        return html("sign_in.html", {"next": next if next.startswith("/") and not next.startswith("//") else "/",
+        local = next.startswith("/") and not next.startswith("//")  # never send a reader to another site
+        return html("sign_in.html", {"next": next if local else "/",
                                      "keys_required": host.settings.keys_required})
 
     @router.post("/sign-in", status_code=204)
@@ -196,8 +199,8 @@ def build_router(host: PageHost) -> APIRouter:
             except (FileNotFoundError, OSError):
                 return Response("not found", status_code=404, media_type="text/plain")
         body, suffix = static_cache[name]
-        return Response(body, media_type=STATIC_TYPES[suffix],
-                        headers={"Cache-Control": "public, max-age=3600", "X-Content-Type-Options": "nosniff"})
+        headers = {"Cache-Control": "public, max-age=3600", "X-Content-Type-Options": "nosniff"}
+        return Response(body, media_type=STATIC_TYPES[suffix], headers=headers)
 
     return router
 

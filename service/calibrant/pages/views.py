@@ -29,6 +29,8 @@ SERIES = (  # (metric key, axis label, the value of a calibrated model or None)
     ("oe_ratio", "O/E (observed / expected)", 1.0),
 )
 HEADLINE = ("log_loss", "calibration_intercept", "calibration_slope", "oe_ratio")
+# The metrics the pages show; the costlier fits they do not show are skipped (metrics_service.metrics).
+SHOWN_KEYS = frozenset({key for key, _, _ in SERIES} | {"psi", "label_coverage"})
 DEFAULT_SPAN = {"day": timedelta(days=56), "week": timedelta(weeks=52), "month": timedelta(days=365)}
 TABLE_WINDOW_DAYS = 28
 ALARMS_LISTED = 50
@@ -49,7 +51,7 @@ def _metrics(session: Session, name: str, now: datetime, *, start: datetime, end
              tag: str | None = None) -> list[dict[str, Any]]:
     answer = metrics_service.metrics(
         session, name, start=rfc3339(start), end=rfc3339(end), granularity=granularity, window=window,
-        version=version, tag=[tag] if tag else [], now=now)
+        version=version, tag=[tag] if tag else [], now=now, keys=SHOWN_KEYS)
     periods: list[dict[str, Any]] = answer["periods"]
     return periods
 
@@ -81,7 +83,8 @@ def last_complete(periods: list[dict[str, Any]]) -> dict[str, Any] | None:
     """The newest period that has labels and can no longer change; else the newest with labels."""
     labeled = [p for p in periods if p.get("n_labeled", 0) > 0]
     settled = [p for p in labeled if not figures.is_provisional(p)]
-    return (settled or labeled or [None])[-1]
+    chosen = settled or labeled
+    return chosen[-1] if chosen else None
 
 
 @dataclass(frozen=True, slots=True)
@@ -93,7 +96,8 @@ class Freshness:
 def _freshness(session: Session, model_id: int) -> Freshness:
     conn = session.connection()
     versions = alarm_repo.versions_of(conn, model_id)
-    return Freshness(alarm_repo.last_scored_at(conn, model_id, versions), rollup_repo.last_job_run(conn, "refresh"))
+    return Freshness(alarm_repo.last_scored_at(conn, model_id, versions),
+                     rollup_repo.last_job_run(conn, "refresh"))
 
 
 def overview(session: Session, now: datetime, only_model: str | None) -> list[dict[str, Any]]:
@@ -149,7 +153,8 @@ def _segment_label(segment: dict[str, str] | None) -> str:
 
 def _table_row(label: str, tag: str | None, period: dict[str, Any]) -> dict[str, Any]:
     status = period.get("status") or {}
-    small = any((status.get(k) or {}).get("state") == "too_few_cases" for k in ("log_loss", "calibration_slope"))
+    small = any((status.get(k) or {}).get("state") == "too_few_cases"
+                for k in ("log_loss", "calibration_slope"))
     return {
         "label": label, "tag": tag,
         "n_predictions": period.get("n_predictions", 0), "n_labeled": period.get("n_labeled", 0),
@@ -174,7 +179,8 @@ def model_page(session: Session, name: str, now: datetime, span: Range, tag: str
     """The model page: series with bands, coverage, reliability, segments, versions, drift, alarms."""
     model = require(session, name)
     span = _clip_to_data(session, model.id, span)
-    periods = _metrics(session, name, now, start=span.start, end=span.end, granularity=span.granularity, tag=tag)
+    periods = _metrics(session, name, now, start=span.start, end=span.end, granularity=span.granularity,
+                       tag=tag)
     alarms = [alarm_out(a) for a in alarm_repo.list_alarms(
         session, model.id, state=None, rule=None, version=None, segment=None, limit=ALARMS_LISTED)]
     open_alarms = [a for a in alarms if a["state"] == "open"]
@@ -183,7 +189,8 @@ def model_page(session: Session, name: str, now: datetime, span: Range, tag: str
         seg_tag = f"{segment[0]}:{segment[1]}"
         if seg_tag != tag:
             in_alarm.append((f"{segment[0]}={segment[1]} (in alarm)", _metrics(
-                session, name, now, start=span.start, end=span.end, granularity=span.granularity, tag=seg_tag)))
+                session, name, now, start=span.start, end=span.end, granularity=span.granularity,
+                tag=seg_tag)))
     in_alarm.sort()
     alarm_times = [figures.plot_time(a["crossed_at"]) for a in open_alarms]
     diagram = metrics_service.reliability(
@@ -193,7 +200,8 @@ def model_page(session: Session, name: str, now: datetime, span: Range, tag: str
     segments = [
         _table_row(f"{key}={value}", f"{key}:{value}", _window_period(session, name, now, span.end,
                                                                       tag=f"{key}:{value}"))
-        for key, values in sorted(rollup_repo.segment_values(conn, model.id).items()) for value in sorted(values)
+        for key, values in sorted(rollup_repo.segment_values(conn, model.id).items())
+        for value in sorted(values)
     ]
     versions = [_table_row(version, None, _window_period(session, name, now, span.end, version=version))
                 for version in alarm_repo.versions_of(conn, model.id)]

@@ -29,7 +29,8 @@ def open_session(session: Session, key_id: str, now: datetime, lifetime: timedel
     """
     session.execute(delete(PageSession).where(PageSession.expires_at <= now))
     token = secrets.token_urlsafe(32)
-    session.add(PageSession(token_hash=_hash(token), key_id=key_id, created_at=now, expires_at=now + lifetime))
+    session.add(PageSession(token_hash=_hash(token), key_id=key_id, created_at=now,
+                            expires_at=now + lifetime))
     session.flush()
     return token
 
@@ -39,13 +40,12 @@ def key_of(session: Session, token: str, now: datetime) -> ApiKey | None:
 
     The lookup is by the token's hash: an equality on a 256-bit hash gives nothing to time.
     """
-    row = session.execute(
+    return session.execute(
         select(ApiKey)
         .join(PageSession, PageSession.key_id == ApiKey.key_id)
         .where(PageSession.token_hash == _hash(token), PageSession.expires_at > now,
                ApiKey.revoked_at.is_(None))
     ).scalar_one_or_none()
-    return row
 
 
 def close_session(session: Session, token: str) -> None:

@@ -20,7 +20,7 @@ async def list_audit_events(
     runtime: RuntimeDep,
     _caller: Admin,
     model: Annotated[str | None, Query(description="Only events about this model.")] = None,
-    actor: Annotated[str | None, Query(description="Only this actor, e.g. key:3f2a9c01b7d4 or local.")] = None,
+    actor: Annotated[str | None, Query(description="Only this actor, e.g. key:3f2a9c01b7d4, local.")] = None,
     action: Annotated[str | None, Query(description="Only this action, e.g. rule.changed.")] = None,
     start: Annotated[str | None, Query(description="Inclusive, RFC 3339 with offset.")] = None,
     end: Annotated[str | None, Query(description="Exclusive, RFC 3339 with offset.")] = None,
