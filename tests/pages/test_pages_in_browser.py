@@ -29,10 +29,10 @@ SERIES = ("log_loss", "brier", "calibration_intercept", "calibration_slope", "oe
 RENDER_TIMEOUT_MS = 20_000
 
 
-def plot_drawn(page: Page, testid: str) -> None:
+def plot_drawn(page: Page, testid: str, timeout_ms: int = RENDER_TIMEOUT_MS) -> None:
     """The plot's container holds the library's SVG and says it finished drawing."""
     plot = page.get_by_test_id(f"plot-{testid}")
-    expect(plot).to_have_attribute("data-rendered", "true", timeout=RENDER_TIMEOUT_MS)
+    expect(plot).to_have_attribute("data-rendered", "true", timeout=timeout_ms)
     expect(plot.locator("svg.main-svg").first).to_be_attached()
 
 
@@ -94,15 +94,19 @@ def test_overview_model_and_alarm_pages_render_and_click_through(db: Database, b
 
 
 def test_the_render_check_fails_when_the_plotting_script_is_missing(db: Database, browser: Browser) -> None:
-    seeded = seed(db)
-    with serving(db, seeded.clock, **SETTINGS) as base:
+    clock = FixedClock(T0)
+    with make_client(db, clock=clock) as client:
+        assert post_predictions(client, QUIET_MODEL, [prediction("a", scored_at=iso(T0))]).status_code == 200
+    with serving(db, clock) as base:
         context = browser.new_context()
         page = context.new_page()
+        page.goto(f"{base}/models/{QUIET_MODEL}")
+        plot_drawn(page, "series-log_loss")  # drawn when the script is there
         page.route("**/pages-static/plotly.min.js", lambda route: route.abort())
-        page.goto(f"{base}/models/{MODEL}/alarms/{seeded.alarm_id}")
+        page.reload()
         with pytest.raises(AssertionError):
-            expect(page.get_by_test_id("plot-cusum")).to_have_attribute("data-rendered", "true", timeout=2000)
-        expect(page.get_by_test_id("plot-cusum").locator("svg.main-svg")).to_have_count(0)
+            plot_drawn(page, "series-log_loss", timeout_ms=2000)
+        expect(page.get_by_test_id("plot-series-log_loss").locator("svg.main-svg")).to_have_count(0)
         context.close()
 
 
