@@ -16,7 +16,7 @@ from tests.bench.pages import run
 def test_small_pages_benchmark(tmp_path: Path) -> None:
     result = run(f"sqlite:///{tmp_path / 'pages.db'}", weeks=4, segments=3, per_day=60, repeats=2)
     for name in ("model_page", "overview"):
-        figures = (*result[f"{name}_server_ms"], *result[f"{name}_wall_ms"])
+        figures = (*result[f"{name}_server_ms"], *result[f"{name}_wall_ms"], *result[f"{name}_cpu_ms"])
         assert all(math.isfinite(v) and v > 0 for v in figures), figures
     assert result["load_s"] > 0
     assert result["refresh_s"] > 0
