@@ -133,5 +133,8 @@ def test_signing_in_in_the_browser_opens_the_pages_and_never_the_api(
         assert (cookie["httpOnly"], cookie["sameSite"]) == (True, "Strict")
         assert page.evaluate("document.cookie") == ""  # the page's scripts cannot read it
         assert page.request.get(base + "/v1/models").status == 401  # the cookie is sent, and refused
+        page.get_by_test_id("sign-out").click()
+        page.wait_for_url(f"{base}/sign-in")
+        assert context.cookies() == []
         watch.assert_clean()
         context.close()

@@ -67,7 +67,12 @@ function signIn(form) {
 
 function signOut(button) {
   button.addEventListener("click", () => {
-    fetch("/sign-out", {method: "POST", credentials: "same-origin"}).then(() => {
+    fetch("/sign-out", {
+      method: "POST",
+      headers: {"Content-Type": "application/json"},
+      credentials: "same-origin",
+      body: "{}",
+    }).then(() => {
       window.location.assign("/sign-in");
     });
   });
