@@ -11,6 +11,8 @@ from datetime import UTC, datetime, timedelta
 import pytest
 
 from calibrant.clock import FixedClock
+from calibrant.store.alarm_tables import Alarm
+from calibrant.store.engine import make_session_factory
 from tests.api.issued_keys import bearer, create_key, run_cli
 from tests.api.payloads import assert_problem, post_predictions, prediction
 from tests.conftest import Database, make_client
@@ -138,3 +140,34 @@ def test_the_pages_static_files_and_bad_page_input(db: Database) -> None:
         assert bad.status_code == 422
         assert "granularity" in bad.text
         assert client.get("/models/churn", params={"start": "yesterday"}).status_code == 422
+
+
+def test_an_alarm_without_a_chart_shows_its_evidence_and_says_there_is_no_path(db: Database) -> None:
+    """A window rule's alarm (evidence of a period, no chart path) and a resolved model-wide one."""
+    _seed_models(db)
+    model_id = int(db.scalar("SELECT id FROM models WHERE name = 'churn'"))
+    evidence = {"statistic": 0.61, "interval": [0.55, 0.67], "n": 480, "period_start": "2026-03-02T00:00:00Z",
+                "period_end": "2026-03-09T00:00:00Z", "granularity": "week", "detail": {"reference": 0.52}}
+    with make_session_factory(db.engine)() as session:
+        session.add_all([
+            Alarm(model_id=model_id, rule_id=1, rule_name="excess-log-loss-weekly", version="default",
+                  segment_key="", segment_value="", state="open", open_key="k1", summary="log-loss above",
+                  evidence=evidence, crossed_at=NOW, opened_at=NOW),
+            Alarm(model_id=model_id, rule_id=2, rule_name="feed-starvation", version="", segment_key="",
+                  segment_value="", state="resolved", open_key=None, summary="feed silent",
+                  evidence={"statistic": None, "interval": None, "n": 0}, crossed_at=NOW, opened_at=NOW,
+                  resolved_at=NOW + timedelta(hours=1), resolved_by="system", resolution={"reason": "fed"}),
+        ])
+        session.commit()
+    with make_client(db, clock=FixedClock(NOW)) as client:
+        window = client.get("/models/churn/alarms/1")
+        assert window.status_code == 200, window.text
+        assert 'data-testid="no-chart"' in window.text
+        assert "0.5500 – 0.6700" in window.text  # the interval, to four places
+        assert "period_start" in window.text
+        resolved = client.get("/models/churn/alarms/2")
+        assert resolved.status_code == 200, resolved.text
+        assert "resolved" in resolved.text
+        page = client.get("/models/churn")
+        assert page.text.count('data-testid="alarm-row"') == 2
+        assert client.get("/models/churn/alarms/3").status_code == 404
