@@ -52,6 +52,9 @@ def test_sign_in_sets_a_strict_httponly_cookie_that_opens_pages_but_not_the_api(
         assert first.status_code == 303
         assert first.headers["location"] == "/sign-in?next=%2Fmodels%2Fchurn"
         assert client.get("/sign-in").status_code == 200
+        for elsewhere in ("//evil.example/x", "/\\evil.example", "https://evil.example/"):
+            form = client.get("/sign-in", params={"next": elsewhere}).text
+            assert 'data-next="/"' in form, elsewhere
 
         signed = client.post("/sign-in", json={"key": token})
         assert signed.status_code == 204, signed.text

@@ -158,7 +158,8 @@ def build_router(host: PageHost) -> APIRouter:
 
     @router.get("/sign-in", response_class=HTMLResponse)
     async def sign_in_page(next: str = "/") -> Response:
-        local = next.startswith("/") and not next.startswith("//")  # never send a reader to another site
+        # Never send a reader to another site: a path on this host only ("//x" and "/\\x" name hosts).
+        local = next.startswith("/") and not next.startswith(("//", "/\\"))
         return html("sign_in.html", {"next": next if local else "/",
                                      "keys_required": host.settings.keys_required})
 
