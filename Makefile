@@ -5,7 +5,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 export CALIBRANT_DATABASE_URL ?= sqlite:///./var/calibrant.db
 
-.PHONY: run test lint bench venv migrate clean demo
+.PHONY: run test lint bench venv browser migrate clean demo
 
 $(STAMP): pyproject.toml clients/python/pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -14,7 +14,19 @@ $(STAMP): pyproject.toml clients/python/pyproject.toml
 	$(BIN)/python -m pip install --quiet -e ./clients/python -e '.[dev]'
 	touch $(STAMP)
 
-venv: $(STAMP)
+# The page tests drive Debian's Chromium (never a browser Playwright downloads). Installed once,
+# quietly, when it is not on PATH; CI runs as root on a fresh machine, where apt-get works as is.
+browser:
+	@command -v chromium >/dev/null 2>&1 || { \
+	  if [ "$$(id -u)" = 0 ]; then \
+	    echo "installing chromium (apt-get) for the page tests"; \
+	    apt-get update -qq >/dev/null && \
+	    DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null; \
+	  else \
+	    echo "chromium is not installed: run 'sudo apt-get install -y chromium' for the page tests"; \
+	  fi; }
+
+venv: $(STAMP) browser
 
 migrate: $(STAMP)
 	mkdir -p var
@@ -24,7 +36,7 @@ migrate: $(STAMP)
 run: migrate
 	$(BIN)/calibrant serve
 
-test: $(STAMP)
+test: $(STAMP) browser
 	$(BIN)/ruff check service tests migrations demo clients deploy
 	$(BIN)/lint-imports
 	$(BIN)/mypy
@@ -51,6 +63,8 @@ bench: $(STAMP)
 	$(BIN)/python -m tests.bench.null_year_service
 	$(BIN)/python -m tests.bench.hosmer_lemeshow_null
 	$(BIN)/python -m tests.bench.fuzz
+
+	$(BIN)/python -m tests.bench.pages
 
 clean:
 	rm -rf $(VENV) var .pytest_cache

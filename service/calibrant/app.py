@@ -18,6 +18,7 @@ from calibrant.api import problems
 from calibrant.api.request_gate import RequestGate
 from calibrant.api.routes import (
     alarms,
+    audit,
     health,
     ingest,
     metrics,
@@ -33,6 +34,7 @@ from calibrant.clock import Clock, SystemClock
 from calibrant.config import Settings
 from calibrant.notify.senders import Sender, sender_from_settings
 from calibrant.notify.targets import Resolver, system_resolver
+from calibrant.pages.router import PageHost, build_router
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.unit import Engine
 
@@ -110,6 +112,8 @@ def create_app(
     app.include_router(webhooks.router)
     app.include_router(rules.router)
     app.include_router(alarms.router)
+    app.include_router(audit.router)
+    app.include_router(build_router(PageHost(settings, runtime.sessions, clock)))
 
     def openapi() -> dict:
         if app.openapi_schema is None:

@@ -85,6 +85,9 @@ class Settings(BaseSettings):
         description="Permit webhook targets on private and loopback addresses (never link-local "
         "or cloud metadata ones).",
     )
+    page_session_hours: float = Field(
+        12.0, gt=0, le=24 * 30, description="How long a page sign-in lasts before the reader signs in again."
+    )
     webhook_sender: str = Field("http", description="http (deliver) or log (only log each request).")
     webhook_timeout_seconds: float = Field(10.0, gt=0, le=120, description="Per webhook attempt.")
     webhook_retry_base_seconds: float = Field(

@@ -248,6 +248,8 @@ def _read_everything(client: TestClient, hook: int) -> dict[str, Any]:
     _ok(client.get("/v1/webhooks"))
     _ok(client.get(f"/v1/webhooks/{hook}"))
     deliveries = _ok(client.get(f"/v1/webhooks/{hook}/deliveries"))["deliveries"]
+    _ok(client.get("/v1/audit"))
+    _ok(client.get("/v1/audit", params={"model": MODEL, "limit": 2, **span}))
     return {"alarms": alarms, "backtests": backtests, "deliveries": deliveries}
 
 

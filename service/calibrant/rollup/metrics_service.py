@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import re
+from collections.abc import Collection
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -60,11 +61,14 @@ def _selection(model: Model, start: str | None, end: str | None, version: str | 
 
 def serialise(metrics: dict[str, Estimate]) -> dict[str, Any]:
     """API shape: every count an int (0 when there is none), every metric a number or null,
-    ``k_ci`` for interval keys, a status per key not measured."""
+    ``k_ci`` for interval keys, a status per key not measured. A key left out of ``metrics``
+    (not asked for) is left out here too."""
     out: dict[str, Any] = {}
     status: dict[str, dict[str, str]] = {}
     for key in (*COUNT_KEYS, *METRIC_KEYS):
-        est = metrics[key]
+        est = metrics.get(key)
+        if est is None:
+            continue
         value = est.value
         out[key] = count(value) if key in COUNT_KEYS else value
         if key in INTERVAL_KEYS:
@@ -86,7 +90,9 @@ def metrics(
     version: str | None,
     tag: list[str],
     now: datetime,
+    keys: Collection[str] | None = None,
 ) -> dict[str, Any]:
+    """The periods' metrics; with ``keys`` (the pages), the costlier metrics not named are skipped."""
     model = require(session, model_name)
     try:
         grain = Granularity(granularity)
@@ -115,7 +121,7 @@ def metrics(
         entry: dict[str, Any] = {"start": span.start, "end": span.end}
         if span.window_start is not None:
             entry["window_start"] = span.window_start
-        entry.update(serialise(query.period_metrics(span, days, model, reference)))
+        entry.update(serialise(query.period_metrics(span, days, model, reference, keys)))
         body.append(entry)
     return {
         "model": model.name,

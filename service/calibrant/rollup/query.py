@@ -10,6 +10,7 @@ use every bucket. So the passing of time needs no recomputation.
 from __future__ import annotations
 
 from collections import defaultdict
+from collections.abc import Collection
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 
@@ -136,14 +137,16 @@ def _days_in(days: dict[datetime, Summary], start: datetime, end: datetime) -> l
 
 
 def period_metrics(
-    period: Period, days: DaySlices, model: Model, reference: Summary | None
+    period: Period, days: DaySlices, model: Model, reference: Summary | None,
+    keys: Collection[str] | None = None,
 ) -> dict[str, Estimate]:
-    """Every API metric of one period (or of its trailing window)."""
+    """Every API metric of one period (or of its trailing window); the costlier ones only when in
+    ``keys``, if given (``all_metrics``)."""
     lo, hi = period.data_start, period.end
     mature = Summary.merge_many(_days_in(days.mature, lo, hi))
     immature = Summary.merge_many(_days_in(days.immature, lo, hi))
     everything = mature + immature
-    out = all_metrics(mature, None, implicit_negatives=bool(model.implicit_negatives))
+    out = all_metrics(mature, None, implicit_negatives=bool(model.implicit_negatives), keys=keys)
     n_all = sum(everything.counts().values())
     n_young = sum(immature.counts().values())
     out["n_predictions"] = Estimate(value=float(n_all), n=n_all)
@@ -159,7 +162,7 @@ def period_metrics(
         out["psi"] = psi(everything, reference)
     if model.outcome_horizon_days is not None and mature.is_empty() and not everything.is_empty():
         for key in metrics.METRIC_KEYS:
-            if key not in metrics.LABEL_FREE_KEYS:
+            if key not in metrics.LABEL_FREE_KEYS and key in out:
                 out[key] = missing(
                     Status.TOO_FEW_CASES,
                     "no mature predictions yet: outcomes are still inside horizon + lag",

@@ -17,6 +17,7 @@ the metrics API reports.
 from __future__ import annotations
 
 import math
+from collections.abc import Collection
 
 from calibrant.stats import summary_binned as binned
 from calibrant.stats._numerics import Z95
@@ -283,8 +284,11 @@ def all_metrics(
     *,
     implicit_negatives: bool = False,
     n_bins: int = 10,
+    keys: Collection[str] | None = None,
 ) -> dict[str, Estimate]:
-    """Every window metric the API reports, keyed by its API name.
+    """Every window metric the API reports, keyed by its API name (only ``keys``, when given:
+    the costlier fits — Brier decomposition, robust slope, Spiegelhalter's z, ECE, AUC — are
+    skipped when not asked for; the cheap ones are always there).
 
     Label metrics use positives and negatives, plus unlabeled rows as y = 0 when
     ``implicit_negatives``. ``n_immature`` is not here: maturity is the caller's
@@ -292,8 +296,10 @@ def all_metrics(
     ``n_bins`` equal-width bins (exact); ``ece`` the same bins; ``psi`` needs
     ``reference`` (else undefined).
     """
+    def wanted(*names: str) -> bool:
+        return keys is None or any(name in keys for name in names)
+
     v = summary.labeled(implicit_negatives)
-    decomposition = binned.murphy_decomposition(v, n_bins=n_bins)
     recal = binned.logistic_recalibration(v)
     out: dict[str, Estimate] = {
         "n_predictions": n_predictions(summary),
@@ -306,20 +312,26 @@ def all_metrics(
         "log_loss_expected": expected_log_loss(v),
         "brier": brier(v),
     }
-    for key, attr in (("brier_reliability", "reliability"), ("brier_resolution", "resolution"),
-                      ("brier_uncertainty", "uncertainty")):
-        value = getattr(decomposition, attr)
-        out[key] = (estimate(value, n=decomposition.n, extra={"n_bins": n_bins})
-                    if decomposition.measured else missing(decomposition.status, decomposition.reason,
-                                                     n=decomposition.n))
+    if wanted("brier_reliability", "brier_resolution", "brier_uncertainty"):
+        decomposition = binned.murphy_decomposition(v, n_bins=n_bins)
+        for key, attr in (("brier_reliability", "reliability"), ("brier_resolution", "resolution"),
+                          ("brier_uncertainty", "uncertainty")):
+            value = getattr(decomposition, attr)
+            out[key] = (estimate(value, n=decomposition.n, extra={"n_bins": n_bins})
+                        if decomposition.measured else missing(decomposition.status, decomposition.reason,
+                                                         n=decomposition.n))
     out["calibration_intercept"] = binned.calibration_intercept(v)
     out["calibration_slope"] = recal.slope
-    out["calibration_slope_robust"] = calibration_slope_robust(v)
+    if wanted("calibration_slope_robust"):
+        out["calibration_slope_robust"] = calibration_slope_robust(v)
     out["n_clipped"] = n_clipped(v)
     out["n_confident_errors"] = n_confident_errors(v)
-    out["spiegelhalter_z"] = spiegelhalter_z(v)
-    out["ece"] = binned.ece(v, n_bins=n_bins)
-    out["auc"] = binned.auc(v)
+    if wanted("spiegelhalter_z"):
+        out["spiegelhalter_z"] = spiegelhalter_z(v)
+    if wanted("ece"):
+        out["ece"] = binned.ece(v, n_bins=n_bins)
+    if wanted("auc"):
+        out["auc"] = binned.auc(v)
     out["psi"] = (psi(summary, reference) if reference is not None
                   else missing(Status.NO_VALUE, "no reference summary given"))
     return out

@@ -13,6 +13,7 @@ which another worker takes them over with the same message id.
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any, cast
@@ -224,3 +225,37 @@ def deliveries_of(
         for attempt in session.scalars(attempt_query):
             attempts[attempt.delivery_id].append(attempt)
     return [DeliveryRecord(row[0], row[1], attempts[row[0].id]) for row in rows]
+
+
+@dataclass(frozen=True, slots=True)
+class AlarmDelivery:
+    kind: str  # alarm.opened or alarm.resolved
+    target_url: str
+    delivery: WebhookDelivery
+
+
+def alarm_deliveries(session: Session, model_id: int, alarm_id: int) -> list[AlarmDelivery]:
+    """Every delivery of the events announcing one alarm, oldest first.
+
+    An event names its alarm only inside its frozen body, so the model's alarm events
+    are read and matched here (a model has few alarm events; its predictions are untouched).
+    """
+    events = session.execute(
+        select(OutboxEvent.id, OutboxEvent.kind, OutboxEvent.body)
+        .where(OutboxEvent.model_id == model_id, OutboxEvent.kind.like("alarm.%"))
+    ).all()
+    ids = [event_id for event_id, _, body in events
+           if (_json_loads(body).get("data") or {}).get("alarm", {}).get("id") == alarm_id]
+    if not ids:
+        return []
+    kinds = {event_id: kind for event_id, kind, _ in events}
+    rows = session.execute(
+        select(D, WebhookTarget.url).join(WebhookTarget, WebhookTarget.id == D.target_id)
+        .where(D.event_id.in_(ids)).order_by(D.id)
+    ).all()
+    return [AlarmDelivery(kinds[row[0].event_id], row[1], row[0]) for row in rows]
+
+
+def _json_loads(body: str) -> dict[str, Any]:
+    loaded = json.loads(body)
+    return loaded if isinstance(loaded, dict) else {}
