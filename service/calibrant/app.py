@@ -15,7 +15,7 @@ from fastapi import FastAPI
 import calibrant
 from calibrant import jobs, scheduler
 from calibrant.api import problems
-from calibrant.api.routes import alarms, health, ingest, metrics, models, refresh, rules, webhooks
+from calibrant.api.routes import alarms, health, ingest, metrics, models, refresh, reports, rules, webhooks
 from calibrant.api.runtime import Runtime
 from calibrant.api.schemas import add_body_schemas
 from calibrant.clock import Clock, SystemClock
@@ -97,6 +97,7 @@ def create_app(
     app.include_router(webhooks.router)
     app.include_router(rules.router)
     app.include_router(alarms.router)
+    app.include_router(reports.router)
 
     def openapi() -> dict:
         if app.openapi_schema is None:

@@ -247,6 +247,8 @@ def _read_everything(client: TestClient, hook: int) -> dict[str, Any]:
     _ok(client.get("/v1/webhooks"))
     _ok(client.get(f"/v1/webhooks/{hook}"))
     deliveries = _ok(client.get(f"/v1/webhooks/{hook}/deliveries"))["deliveries"]
+    _ok(client.get(f"{m}/history"))
+    _ok(client.get(f"{m}/report", params=span))
     return {"alarms": alarms, "backtests": backtests, "deliveries": deliveries}
 
 
