@@ -101,13 +101,13 @@ def _references(session: Session, model: Model, then: Model, as_of: datetime) ->
         if current.get("kind") == "uploaded" and current.get("uploaded_at") == ref.get("uploaded_at"):
             payload = rollup_repo.reference_sample(conn, model.id)
             if payload is not None:
-                return numbers.reference_summaries(None, Summary.from_bytes(payload), then, None)
+                return numbers.reference_summaries(None, Summary.from_bytes(payload), None)
         return numbers.References(None, {}, "the uploaded reference in force at as_of has since been "
                                              "replaced; score drift against it cannot be rebuilt")
     rows: KnownRows = as_of_rows.known_rows(
         conn, model.id, datetime.fromisoformat(ref["start"]), datetime.fromisoformat(ref["end"]), as_of,
-        version=ref.get("version"))
-    return numbers.reference_summaries(rows, None, then, None)
+        version=ref.get("version"), segment_keys=list(then.segment_keys or []))
+    return numbers.reference_summaries(rows, None, None)
 
 
 def build(session: Session, model_name: str, *, start: str | None, end: str | None, as_of: str | None,
@@ -121,7 +121,8 @@ def build(session: Session, model_name: str, *, start: str | None, end: str | No
                                           "recorded_by": plan_row.actor, **plan_row.content}
     then = model_as_configured(model, settings.content)
     references = _references(session, model, then, when)
-    rows = as_of_rows.known_rows(session.connection(), model.id, lo, hi, when)
+    rows = as_of_rows.known_rows(session.connection(), model.id, lo, hi, when,
+                                 segment_keys=list(then.segment_keys or []))
     figures = numbers.figures(rows, then, lo, hi, when, references)
     body = {
         "model": model.name,
@@ -162,7 +163,8 @@ def restatements(session: Session, model: Model, then: Model, start: datetime, e
                "corrections": later.corrections}
     changed: list[dict[str, Any]] = []
     if any(arrived.values()):
-        rows = as_of_rows.known_rows(conn, model.id, start, end, now)
+        rows = as_of_rows.known_rows(conn, model.id, start, end, now,
+                                     segment_keys=list(then.segment_keys or []))
         current = orjson.loads(canonical(numbers.figures(rows, then, start, end, as_of, references)))
         known = orjson.loads(canonical({"periods": figures["periods"], "overall": figures["overall"]}))
         changed += _differences(None, known["overall"], current["overall"])

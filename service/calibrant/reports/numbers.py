@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from calibrant.reports.known import day_slices, segment_columns, whole
+from calibrant.reports.known import slices, whole
 from calibrant.rollup import query
 from calibrant.rollup.metrics_service import diagram_dict, serialise
 from calibrant.rollup.periods import Granularity, Period, periods
@@ -51,25 +51,26 @@ def figures(rows: KnownRows, model: Model, start: datetime, end: datetime, as_of
             references: References) -> dict[str, Any]:
     """Weekly periods, the whole span, the reliability diagram, and the version and segment tables."""
     boundary = query.maturity_boundary(model, as_of)
-    slices = day_slices(rows, None, boundary)
+    weeks = report_periods(start, end)
+    by_week = slices(rows, None, boundary, [w.start for w in weeks])
     span = Period(start, end)
     weekly = []
-    for period in report_periods(start, end):
+    for period in weeks:
         weekly.append({"start": period.start, "end": period.end,
-                       **serialise(query.period_metrics(period, slices, model, references.model_wide))})
-    overall = serialise(query.period_metrics(span, slices, model, references.model_wide))
-    mature, _ = whole(slices)
+                       **serialise(query.period_metrics(period, by_week, model, references.model_wide))})
+    overall = serialise(query.period_metrics(span, by_week, model, references.model_wide))
+    mature, _ = whole(by_week)
     diagram = reliability_diagram(mature.labeled(bool(model.implicit_negatives)), n_bins=RELIABILITY_BINS,
                                   strategy="uniform")
     versions = []
-    for version in sorted(set(rows.version.tolist())):
-        part = day_slices(rows, rows.version == version, boundary)
+    for code, version in enumerate(rows.versions):
+        part = slices(rows, rows.version_code == code, boundary, [start])
         versions.append({"version": version,
                          **serialise(query.period_metrics(span, part, model, references.model_wide))})
     segments = []
-    for column in segment_columns(rows, list(model.segment_keys or [])):
-        for value in column.kept:
-            part = day_slices(rows, column.values == value, boundary)
+    for column in rows.segments:
+        for code, value in enumerate(column.values):
+            part = slices(rows, column.codes == code, boundary, [start])
             reference = references.of((column.key, value))
             segments.append({"key": column.key, "value": value,
                              **serialise(query.period_metrics(span, part, model, reference))})
@@ -112,7 +113,7 @@ def _overlaps(ci: list[float], lower: float | None, upper: float | None) -> bool
     return (upper is None or ci[0] <= upper) and (lower is None or ci[1] >= lower)
 
 
-def reference_summaries(reference_rows: KnownRows | None, uploaded: Summary | None, model: Model,
+def reference_summaries(reference_rows: KnownRows | None, uploaded: Summary | None,
                         note: str | None) -> References:
     """The reference of the settings in force: traffic rows known at ``as_of`` (every prediction
     of the window, as ``rollup.references.reference_summary`` takes it), or the uploaded set."""
@@ -123,9 +124,9 @@ def reference_summaries(reference_rows: KnownRows | None, uploaded: Summary | No
     rows = reference_rows
     model_wide = Summary.from_arrays(rows.probability, rows.label)
     by_segment: dict[tuple[str, str], Summary | None] = {}
-    for column in segment_columns(rows, list(model.segment_keys or [])):
-        for value in column.kept:
-            mask = column.values == value
+    for column in rows.segments:
+        for code, value in enumerate(column.values):
+            mask = column.codes == code
             by_segment[(column.key, value)] = (
                 Summary.from_arrays(rows.probability[mask], rows.label[mask]) if np.any(mask) else None)
     return References(model_wide, by_segment, note)
