@@ -122,7 +122,7 @@ def build(session: Session, model_name: str, *, start: str | None, end: str | No
     then = model_as_configured(model, settings.content)
     references = _references(session, model, then, when)
     rows = as_of_rows.known_rows(session.connection(), model.id, lo, hi, when,
-                                 segment_keys=list(then.segment_keys or []))
+                                 segment_keys=list(then.segment_keys or []), labels_settled=when >= now)
     figures = numbers.figures(rows, then, lo, hi, when, references)
     body = {
         "model": model.name,
@@ -158,13 +158,15 @@ def restatements(session: Session, model: Model, then: Model, start: datetime, e
     and maturity of ``as_of``, so that a difference is the late data's doing, not time's.
     """
     conn = session.connection()
-    later = as_of_rows.arrived_after(conn, model.id, start, end, as_of)
+    # Rows are stamped with the service's own clock when received: nothing arrives after now.
+    later = (as_of_rows.ArrivedLater(0, 0, 0) if as_of >= now
+             else as_of_rows.arrived_after(conn, model.id, start, end, as_of))
     arrived = {"predictions": later.predictions, "first_labels": later.first_labels,
                "corrections": later.corrections}
     changed: list[dict[str, Any]] = []
     if any(arrived.values()):
         rows = as_of_rows.known_rows(conn, model.id, start, end, now,
-                                     segment_keys=list(then.segment_keys or []))
+                                     segment_keys=list(then.segment_keys or []), labels_settled=True)
         current = orjson.loads(canonical(numbers.figures(rows, then, start, end, as_of, references)))
         known = orjson.loads(canonical({"periods": figures["periods"], "overall": figures["overall"]}))
         changed += _differences(None, known["overall"], current["overall"])

@@ -74,11 +74,13 @@ def revisions_after(conn: Connection, model_id: int, as_of: datetime) -> bool:
 
 
 def known_rows(conn: Connection, model_id: int, start: datetime, end: datetime, as_of: datetime,
-               *, version: str | None = None, segment_keys: Sequence[str] = ()) -> KnownRows:
+               *, version: str | None = None, segment_keys: Sequence[str] = (),
+               labels_settled: bool = False) -> KnownRows:
     """Predictions scored in [start, end) and received by ``as_of``, with their labels as of then.
 
     When no revision arrived after ``as_of`` the current label is the label as of then, and
-    the join reads ``outcomes`` directly (the common case: a report of the present). Versions
+    the join reads ``outcomes`` directly (the common case: a report of the present, for which
+    the caller passes ``labels_settled`` and the check is skipped). Versions
     and segment values travel as small integer codes, so that every column is a fixed-width
     number: PostgreSQL sends them by binary COPY, read with one ``numpy.frombuffer``.
     Each key keeps its MAX_SEGMENT_VALUES most frequent values (ties by name); the rest are
@@ -91,7 +93,7 @@ def known_rows(conn: Connection, model_id: int, start: datetime, end: datetime, 
     versions = list(conn.execute(select(Prediction.version).where(*known).distinct()
                                  .order_by(Prediction.version)).scalars())
     segments = [_segment_values(conn, key, known) for key in segment_keys]
-    if revisions_after(conn, model_id, as_of):
+    if not labels_settled and revisions_after(conn, model_id, as_of):
         # Each case's latest revision received by as_of: one grouped pass, then one join
         # (a correlated max per prediction costs an index probe per row).
         latest = (
@@ -144,10 +146,9 @@ def _segment_values(conn: Connection, key: str, known: list[Any]) -> tuple[str, 
     """The key's kept values (most frequent first, ties by name) and whether others were pooled."""
     value = _tag_value(conn, key)
     counts = conn.execute(
-        select(value, func.count()).select_from(Prediction).where(*known, value.is_not(None))
-        .group_by(value)
-    ).all()
-    ranked = sorted(((str(v), int(n)) for v, n in counts), key=lambda vn: (-vn[1], vn[0]))
+        select(value, func.count()).select_from(Prediction).where(*known).group_by(value)).all()
+    # Rows without the tag group under NULL, dropped here: filtering in SQL would parse each tag twice.
+    ranked = sorted(((str(v), int(n)) for v, n in counts if v is not None), key=lambda vn: (-vn[1], vn[0]))
     kept = sorted(v for v, _ in ranked[:MAX_SEGMENT_VALUES])
     return key, kept, len(ranked) > MAX_SEGMENT_VALUES
 
@@ -180,6 +181,9 @@ def _fetch_pg(conn: Connection, query: Any, n_ints: int) -> list[np.ndarray]:
     compiled = query.compile(dialect=conn.dialect)
     raw = conn.connection.driver_connection
     assert raw is not None
+    # The key-order sort of a year's rows spills to disk at the default 4 MB; for this
+    # transaction only, give it room (about 60 MB per million rows).
+    conn.exec_driver_sql("SET LOCAL work_mem = '128MB'")
     with raw.cursor() as cursor, cursor.copy(
             f"COPY ({compiled.string}) TO STDOUT (FORMAT BINARY)", compiled.params) as copy:
         data = b"".join(copy)
