@@ -15,6 +15,7 @@ from datetime import datetime
 from typing import Any
 
 import numpy as np
+from psycopg import ClientCursor, pq
 from sqlalchemy import JSON, BigInteger, SmallInteger, and_, case, cast, func, select
 from sqlalchemy.engine import Connection
 from sqlalchemy.sql.elements import ColumnElement
@@ -184,9 +185,10 @@ def _fetch_pg(conn: Connection, query: Any, n_ints: int) -> list[np.ndarray]:
     # The key-order sort of a year's rows spills to disk at the default 4 MB; for this
     # transaction only, give it room (about 60 MB per million rows).
     conn.exec_driver_sql("SET LOCAL work_mem = '128MB'")
-    with raw.cursor() as cursor, cursor.copy(
-            f"COPY ({compiled.string}) TO STDOUT (FORMAT BINARY)", compiled.params) as copy:
-        data = b"".join(copy)
+    # COPY takes no server-side parameters: bind them client-side, as psycopg's Copy does.
+    statement = ClientCursor(raw).mogrify(f"COPY ({compiled.string}) TO STDOUT (FORMAT BINARY)",
+                                          compiled.params)
+    data = _copy_out(raw.pgconn, statement.encode())
     if not data.startswith(_COPY_SIGNATURE):
         raise RuntimeError("unexpected COPY BINARY header")
     extension = int.from_bytes(data[15:19], "big")
@@ -198,6 +200,45 @@ def _fetch_pg(conn: Connection, query: Any, n_ints: int) -> list[np.ndarray]:
     if records.size and np.any(records["count"] != 1 + n_ints):
         raise RuntimeError("unexpected COPY BINARY row shape")
     return [records["p"], records["y"], records["t"], *(records[f"c{i}"] for i in range(n_ints - 2))]
+
+
+def _copy_out(pgconn: Any, statement: bytes) -> bytes:
+    """Every byte a ``COPY … TO STDOUT`` sends, read with libpq's own loop.
+
+    COPY sends one message per row; reading them through libpq's blocking ``PQgetCopyData``
+    (psycopg's ``pq`` binding) took about three quarters of the time of iterating psycopg's
+    ``Copy`` object on 300,000 rows (2.9 s against 3.9 s, load average 11). Whatever happens,
+    the connection is read back to idle so that the caller's transaction can still end.
+    """
+    pgconn.send_query(statement)
+    chunks: list[bytes] = []
+    copying = finished = False
+    problem: str | None = None
+    try:
+        result = pgconn.get_result()
+        copying = result is not None and result.status == pq.ExecStatus.COPY_OUT
+        if not copying:
+            problem = "COPY did not start: " + _message(result)
+        while copying:
+            size, chunk = pgconn.get_copy_data(0)
+            if size < 0:
+                break
+            chunks.append(chunk)
+        finished = True
+    finally:
+        if copying and not finished:
+            while pgconn.get_copy_data(0)[0] >= 0:
+                pass
+        while (result := pgconn.get_result()) is not None:
+            if result.status != pq.ExecStatus.COMMAND_OK and problem is None:
+                problem = "COPY failed: " + _message(result)
+    if problem is not None:
+        raise RuntimeError(problem)
+    return b"".join(chunks)
+
+
+def _message(result: Any) -> str:
+    return "" if result is None else bytes(result.error_message or b"").decode(errors="replace")
 
 
 @dataclass(frozen=True, slots=True)
