@@ -63,8 +63,8 @@ bench: $(STAMP)
 	$(BIN)/python -m tests.bench.null_year_service
 	$(BIN)/python -m tests.bench.hosmer_lemeshow_null
 	$(BIN)/python -m tests.bench.fuzz
-
 	$(BIN)/python -m tests.bench.pages
+	$(BIN)/python -m tests.bench.report
 
 clean:
 	rm -rf $(VENV) var .pytest_cache

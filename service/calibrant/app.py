@@ -25,6 +25,7 @@ from calibrant.api.routes import (
     models,
     openmetrics,
     refresh,
+    reports,
     rules,
     webhooks,
 )
@@ -113,6 +114,7 @@ def create_app(
     app.include_router(rules.router)
     app.include_router(alarms.router)
     app.include_router(audit.router)
+    app.include_router(reports.router)
     app.include_router(build_router(PageHost(settings, runtime.sessions, clock)))
 
     def openapi() -> dict:

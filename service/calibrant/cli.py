@@ -1,4 +1,4 @@
-"""The ``calibrant`` command: serve, wait, migrate, refresh, scheduler, keys.
+"""The ``calibrant`` command: serve, wait, migrate, refresh, scheduler, keys, report.
 
 A composition root: it reads Settings once and wires the layers together.
 """
@@ -22,9 +22,11 @@ from calibrant import scheduler
 from calibrant.app import create_app
 from calibrant.clock import SystemClock
 from calibrant.config import Settings
-from calibrant.errors import field_errors
+from calibrant.errors import CalibrantError, InvalidInput, field_errors
 from calibrant.jobs import JobContext, run_all
 from calibrant.logs import FORMATS, log_config
+from calibrant.reports import build as report_build
+from calibrant.reports import render as report_render
 from calibrant.store import audit, keys_repo, migrate
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.keys_repo import Scope
@@ -208,6 +210,30 @@ def cmd_keys_revoke(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_report(args: argparse.Namespace) -> int:
+    """Build a report as the API does (stored as a snapshot too) and write it to a file."""
+    engine = make_engine(_settings())
+    clock = SystemClock()
+    with make_session_factory(engine)() as session:
+        try:
+            report = report_build.build(session, args.model, start=args.start, end=args.end, as_of=args.as_of,
+                                        now=clock.now(), actor="cli")
+        except CalibrantError as exc:
+            details = exc.detail
+            if isinstance(exc, InvalidInput):
+                details += ": " + "; ".join(f"{e.field}: {e.message}" for e in exc.errors)
+            print(f"calibrant: {details}", file=sys.stderr)
+            return 2
+        session.commit()
+    engine.dispose()
+    content = report_render.render(report, args.format)
+    with open(args.out, "wb") as handle:
+        handle.write(content)
+    print(f"report of {args.model} ({args.format}, {len(content)} bytes, content hash "
+          f"{report.body['content_hash']}) written to {args.out}")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="calibrant", description="Watch the probabilities your deployed classifiers emit."
@@ -238,6 +264,15 @@ def build_parser() -> argparse.ArgumentParser:
     sub.add_parser("scheduler", help="run the scheduled jobs without serving").set_defaults(
         func=cmd_scheduler
     )
+
+    report = sub.add_parser("report", help="write a model's governance report to a file")
+    report.add_argument("model")
+    report.add_argument("--start", required=True, help="RFC 3339, inclusive")
+    report.add_argument("--end", required=True, help="RFC 3339, exclusive")
+    report.add_argument("--as-of", dest="as_of", help="RFC 3339; default now")
+    report.add_argument("--format", choices=("json", "html", "pdf"), default="pdf")
+    report.add_argument("--out", required=True, help="file to write")
+    report.set_defaults(func=cmd_report)
 
     mig = sub.add_parser("migrate", help="create or upgrade the database schema")
     mig.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",

@@ -250,6 +250,8 @@ def _read_everything(client: TestClient, hook: int) -> dict[str, Any]:
     deliveries = _ok(client.get(f"/v1/webhooks/{hook}/deliveries"))["deliveries"]
     _ok(client.get("/v1/audit"))
     _ok(client.get("/v1/audit", params={"model": MODEL, "limit": 2, **span}))
+    _ok(client.get(f"{m}/history"))
+    _ok(client.get(f"{m}/report", params=span))
     return {"alarms": alarms, "backtests": backtests, "deliveries": deliveries}
 
 

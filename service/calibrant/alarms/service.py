@@ -19,9 +19,11 @@ from pydantic import ValidationError
 from calibrant.alarms import budget, charts, kinds, records
 from calibrant.alarms.kinds import DEFAULT_RULES, Kind
 from calibrant.errors import Conflict, FieldError, InvalidInput, NotFound, field_errors, invalid
+from calibrant.models import history
 from calibrant.models.service import require
 from calibrant.store import alarm_repo, audit, rollup_repo
 from calibrant.store.alarm_tables import OPEN, RESOLVED, Alarm, AlarmModelState, AlarmRule
+from calibrant.store.history_tables import RULES
 from calibrant.store.tables import Model
 from calibrant.store.unit import Session
 from calibrant.vocabulary.names import NAME_PATTERN, is_name
@@ -40,6 +42,15 @@ def ensure_defaults(session: Session, model: Model, now: datetime) -> None:
                                   params=kinds.parse_params(kind, params).model_dump(), enabled=True,
                                   is_default=True, created_at=now, updated_at=now))
     session.flush()
+    history.record_change(session, model, RULES, before=[], after=rules_snapshot(session, model), at=now,
+                          actor="(default rules)")
+    session.flush()
+
+
+def rules_snapshot(session: Session, model: Model) -> list[dict[str, Any]]:
+    """The model's rules as kept in its settings history: name, kind, params, enabled."""
+    return [{"name": r.name, "kind": r.kind, "params": dict(r.params), "enabled": r.enabled}
+            for r in alarm_repo.rules_of(session, model.id)]
 
 
 def window_streams(session: Session, model: Model) -> int:
@@ -143,9 +154,13 @@ def create_rule(session: Session, model_name: str, body: dict[str, Any], *, acto
     enabled = body.get("enabled", True)
     if not isinstance(enabled, bool):
         raise invalid("enabled", "must be true or false")
+    before_rules = rules_snapshot(session, model)
     rule = AlarmRule(model_id=model.id, name=name, kind=kind.value, params=params, enabled=enabled,
                      is_default=False, created_at=now, updated_at=now)
     session.add(rule)
+    session.flush()
+    history.record_change(session, model, RULES, before=before_rules, after=rules_snapshot(session, model),
+                          at=now, actor=actor)
     audit.record(session, at=now, actor=actor, action="rule.created", target=f"{model.name}/{name}",
                  detail={"kind": kind.value, "params": params, "enabled": enabled}, model_id=model.id)
     session.flush()
@@ -163,6 +178,7 @@ def update_rule(session: Session, model_name: str, name: str, body: dict[str, An
         raise InvalidInput("unknown fields; the name and kind of a rule are fixed",
                            [FieldError(None, k, "unknown or fixed field") for k in sorted(unknown)])
     before = {"params": dict(rule.params), "enabled": rule.enabled}
+    before_rules = rules_snapshot(session, model)
     if "params" in body:
         if not isinstance(body["params"], dict):
             raise invalid("params", "must be an object")
@@ -178,6 +194,9 @@ def update_rule(session: Session, model_name: str, name: str, body: dict[str, An
             alarm_repo.delete_rule_state(session, rule.id)  # new parameters: charts start afresh
         audit.record(session, at=now, actor=actor, action="rule.changed", target=f"{model.name}/{name}",
                      detail={"from": before, "to": after}, model_id=model.id)
+        session.flush()
+        history.record_change(session, model, RULES, before=before_rules,
+                              after=rules_snapshot(session, model), at=now, actor=actor)
     session.flush()
     return rule_out(session, model, rule, budget.of_model(session, model))
 
@@ -187,12 +206,16 @@ def delete_rule(session: Session, model_name: str, name: str, *, actor: str, now
     model = require(session, model_name)
     ensure_defaults(session, model, now)
     rule = _rule(session, model, name)
+    before_rules = rules_snapshot(session, model)
     for alarm in alarm_repo.open_alarms_of_rule(session, rule.id):
         records.resolve(session, model, alarm, now=now, by=actor, resolution={"reason": "rule deleted"})
     alarm_repo.delete_rule_state(session, rule.id)
     session.delete(rule)
     audit.record(session, at=now, actor=actor, action="rule.deleted", target=f"{model.name}/{name}",
                  detail={"kind": rule.kind, "params": rule.params}, model_id=model.id)
+    session.flush()
+    history.record_change(session, model, RULES, before=before_rules, after=rules_snapshot(session, model),
+                          at=now, actor=actor)
     session.flush()
 
 

@@ -8,6 +8,7 @@ from pydantic import ValidationError
 
 from calibrant.clock import Clock
 from calibrant.errors import FieldError, InvalidInput, NotFound, field_errors
+from calibrant.models import history
 from calibrant.models.settings import (
     SUMMARY_SETTINGS,
     ModelSettingsPatch,
@@ -15,6 +16,7 @@ from calibrant.models.settings import (
     merged,
 )
 from calibrant.store import audit, cases, dirty, models_repo
+from calibrant.store.history_tables import SETTINGS
 from calibrant.store.tables import Model
 from calibrant.store.unit import Session
 from calibrant.vocabulary.names import check_name
@@ -79,8 +81,15 @@ def put_settings(
             detail={"changes": changed},
             model_id=model.id,
         )
+        history.record_change(session, model, SETTINGS, before=_json_ready(before),
+                              after=_json_ready(after), at=clock.now(), actor=actor)
     session.flush()
     return model, created
+
+
+def _json_ready(settings: dict[str, Any]) -> dict[str, Any]:
+    """Settings as stored in a JSON column (lists copied so later edits cannot alias)."""
+    return {k: list(v) if isinstance(v, list) else v for k, v in settings.items()}
 
 
 def case_record(session: Session, name: str, case_id: str) -> cases.CaseRecord:

@@ -15,10 +15,12 @@ import orjson
 
 from calibrant.clock import Clock, rfc3339
 from calibrant.errors import FieldError, InvalidInput
-from calibrant.models.service import require
+from calibrant.models import history
+from calibrant.models.service import require, settings_of
 from calibrant.rollup.query import load_days
 from calibrant.stats.summary import Summary
 from calibrant.store import audit, rollup_repo
+from calibrant.store.history_tables import SETTINGS
 from calibrant.store.unit import Connection, Session
 from calibrant.vocabulary.segments import ALL_SEGMENT
 
@@ -119,6 +121,7 @@ def upload(session: Session, model_name: str, body: bytes, *, clock: Clock, acto
     state = np.full(p.size, -1, dtype=np.int8) if y is None else y.astype(np.int8)
     summary = Summary.from_arrays(p, state)
     now = clock.now()
+    before = settings_of(model)
     rollup_repo.save_reference_sample(
         session.connection(), model.id, int(p.size), summary.to_bytes(), description, now
     )
@@ -139,6 +142,8 @@ def upload(session: Session, model_name: str, body: bytes, *, clock: Clock, acto
         detail={"n": int(p.size), "labeled": y is not None},
         model_id=model.id,
     )
+    history.record_change(session, model, SETTINGS, before=before, after=settings_of(model), at=now,
+                          actor=actor)
     session.flush()
     return {"model": model.name, "reference": model.reference}
 

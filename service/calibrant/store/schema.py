@@ -6,11 +6,19 @@ module that is not listed here would be invisible to ``alembic check``.
 
 from __future__ import annotations
 
-from calibrant.store import alarm_tables, page_session_tables, rollup_tables, tables, webhook_tables
+from calibrant.store import (
+    alarm_tables,
+    history_tables,
+    page_session_tables,
+    rollup_tables,
+    tables,
+    webhook_tables,
+)
 from calibrant.store.tables import Base
 
 metadata = Base.metadata
 
 __all__ = [
-    "Base", "alarm_tables", "metadata", "page_session_tables", "rollup_tables", "tables", "webhook_tables",
+    "Base", "alarm_tables", "history_tables", "metadata", "page_session_tables", "rollup_tables", "tables",
+    "webhook_tables",
 ]
