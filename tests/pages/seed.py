@@ -22,7 +22,7 @@ from calibrant.app import create_app
 from calibrant.clock import FixedClock
 from calibrant.notify.senders import RecordingSender
 from tests.alarms.streams import T0, iso, make_day, post_day, refresh, setup_model
-from tests.conftest import Database
+from tests.conftest import REPLAY_TOLERANCE_HOURS, Database
 from tests.notify.helpers import loopback_resolver
 
 MODEL = "parcel-risk"
@@ -31,7 +31,8 @@ DRIFTING = ("region", "south")
 CHARTS = ("calibration-chart-upper",)
 SMALL_DESIGN = {"min_design_cases": 400, "design_sample": 800}
 DAYS, PER_DAY, CHANGE_DAY, SEED = 16, 240, 6, 11
-SETTINGS = {"webhook_allow_private": True}
+# The stream is posted ahead of the fixed clock, which then advances (see tests/conftest.py).
+SETTINGS = {"webhook_allow_private": True, "future_tolerance_hours": REPLAY_TOLERANCE_HOURS}
 
 
 @dataclass(frozen=True)
