@@ -75,7 +75,8 @@ def log_loss_from_sums(
     else LL ± 1.96 SE. Empty → no_value; n ≤ 1 gives the value without SE.
     ``extra`` records ε, the clipped / confident-error counts and the interval method.
     """
-    extra = {"eps": EPS, "n_clipped": n_clipped, "n_confident_errors": n_confident_errors}
+    extra: dict[str, float | int | str | None] = {
+        "eps": EPS, "n_clipped": n_clipped, "n_confident_errors": n_confident_errors}
     if n <= 0:
         return missing(Status.NO_VALUE, _EMPTY, n=0.0, extra=extra)
     ll = Sl / n

@@ -204,14 +204,15 @@ def logistic_recalibration(data: Summary | LabeledBins, *, implicit_negatives: b
 
 # ----------------------------------------------------------------------------- discrimination
 def auc(data: Summary | LabeledBins, *, implicit_negatives: bool = False,
-        min_per_class: int = MIN_PER_CLASS_INTERVAL) -> Estimate:
-    """ROC AUC with DeLong SE and logit interval, fine bins as ties.
+        min_per_class: int = MIN_PER_CLASS_INTERVAL, small_sample_t: bool = False) -> Estimate:
+    """ROC AUC with DeLong SE and logit interval, fine bins as ties (``small_sample_t``: see
+    :func:`calibrant.stats.discrimination.auc_from_class_counts`).
 
     ``extra['binning_error_bound']`` = ½ Σ_k n1k n0k/(n1 n0) bounds |AUC_bins − AUC_rows|.
     """
     v = view(data, implicit_negatives)
     n1k, n0k = v.pos[:, F["n"]], v.neg[:, F["n"]]
-    res = auc_from_class_counts(n0k, n1k, min_per_class=min_per_class)
+    res = auc_from_class_counts(n0k, n1k, min_per_class=min_per_class, small_sample_t=small_sample_t)
     if res.value is not None:
         res.extra["binning_error_bound"] = float(0.5 * (n1k @ n0k) / (n1k.sum() * n0k.sum()))
     return res

@@ -361,9 +361,9 @@ def all_metrics(
     out["n_confident_errors"] = n_confident_errors(v)
     out["spiegelhalter_z"] = spiegelhalter_z(v)
     out["ece"] = binned.ece(v, n_bins=n_bins)
-    # the interval from the registry's AUC floor on (10 of each); DeLong's logit interval keeps
-    # its coverage there (tests/bench/coverage.py)
-    out["auc"] = binned.auc(v, min_per_class=AUC_INTERVAL_MIN_PER_CLASS)
+    # the interval from the registry's AUC floor on (10 of each), with the t quantile that keeps
+    # DeLong's logit interval at its coverage there (tests/bench/coverage.py)
+    out["auc"] = binned.auc(v, min_per_class=AUC_INTERVAL_MIN_PER_CLASS, small_sample_t=True)
     out["psi"] = (psi(summary, reference) if reference is not None
                   else missing(Status.NO_VALUE, "no reference summary given"))
     return out
