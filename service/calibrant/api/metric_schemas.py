@@ -68,8 +68,8 @@ def _description(key: str) -> str:
 
 _NULL_DESCRIPTIONS = {
     "ece": ("ECE expected if the model were calibrated, at this period's bins and counts, and its "
-            "95 % point (2,000 seeded draws; docs/methods.md §12.1); null when ece "
-            "is not measured."),
+            "95 % point (binomial counts per bin, gamma law for the sum; docs/methods.md §12.1); "
+            "null when ece is not measured."),
     "psi": ("PSI expected without drift, (B − 1)(1/n + 1/m), and its 95 % point "
             "χ²_{0.95,B−1}(1/n + 1/m), n and m the period's and the reference's counts "
             "(docs/methods.md §17.2); null when psi is not measured."),
