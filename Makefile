@@ -65,6 +65,7 @@ bench: $(STAMP)
 	$(BIN)/python -m tests.bench.fuzz
 	$(BIN)/python -m tests.bench.pages
 	$(BIN)/python -m tests.bench.report
+	$(BIN)/python -m tests.bench.coverage
 
 clean:
 	rm -rf $(VENV) var .pytest_cache

@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 from metrics_reference import DATASETS, dataset, ref, synthetic
+from scipy import stats as sps
 from sklearn.calibration import calibration_curve
 from statsmodels.nonparametric.smoothers_lowess import lowess as sm_lowess
 
@@ -106,3 +109,20 @@ def test_weighted_lowess_equals_repeated_rows() -> None:
     np.testing.assert_allclose(ce.lowess(x, y, sample_weight=w),
                                ce.lowess(x[rep], y[rep])[np.searchsorted(rep, np.arange(60))],
                                rtol=1e-9, atol=1e-12)
+
+
+def test_ece_null_level_of_one_bin_against_scipy() -> None:
+    # a small bin (n f(1 − f) = 4.5 < 30): the exact binomial mean |O − μ|, from scipy's pmf
+    n, f = 50, 0.1
+    k = np.arange(n + 1)
+    mad = float(sps.binom.pmf(k, n, f) @ np.abs(k - n * f))
+    mean, upper = ce.ece_null_from_bin_sums([n], [n * f])
+    assert mean == pytest.approx(mad / n, rel=1e-10)
+    # a large bin (n f(1 − f) = 900): the half-normal law of |O − μ|, scipy.stats.halfnorm;
+    # the gamma law's 95 % point is 1.975σ against the half-normal's 1.960σ (0.8 % high)
+    n, f = 3600, 0.5
+    sigma = math.sqrt(n * f * (1 - f))
+    mean, upper = ce.ece_null_from_bin_sums([n], [n * f])
+    assert mean == pytest.approx(sps.halfnorm.mean() * sigma / n, rel=1e-12)
+    assert upper == pytest.approx(sps.halfnorm.ppf(0.95) * sigma / n, rel=0.01)
+    assert ce.ece_null_from_bin_sums([0, 0], [0.0, 0.0]) is None

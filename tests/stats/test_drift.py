@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 from metrics_reference import REF, breast_cancer, ref, synthetic
@@ -102,3 +104,20 @@ def test_js_distance() -> None:
         ref(BC, "js_distance_base2"), rel=1e-12)
     assert drift.js_distance_from_counts([5, 0], [5, 0]).value == 0.0
     assert drift.js_distance_from_counts([0, 0], [5, 0]).status is Status.NO_VALUE
+
+
+def test_psi_null_level_is_the_chi_square_law_and_matches_a_simulation() -> None:
+    rng = np.random.default_rng(11)
+    share = np.full(10, 0.1)
+    n = m = 2000
+    ref_counts = rng.multinomial(n, share, size=4000)
+    cur_counts = rng.multinomial(m, share, size=4000)
+    extra = drift.psi_from_counts(ref_counts[0], cur_counts[0]).extra
+    # Yurdakul (2018): under no shift PSI ≈ (1/n + 1/m) χ²_{B−1}; mean and 95 % point from scipy
+    assert extra["null_expected"] == pytest.approx(stats.chi2.mean(9) * (1 / n + 1 / m), rel=1e-12)
+    assert extra["null_95"] == pytest.approx(stats.chi2.ppf(0.95, 9) * (1 / n + 1 / m), rel=1e-12)
+    # numpy multinomial draws of two samples from one law: the mean within 4 Monte Carlo SE, the
+    # 95 % point between the simulated 93rd and 97th percentiles
+    sims = np.array([drift.psi_from_counts(a, b).value for a, b in zip(ref_counts, cur_counts, strict=True)])
+    assert abs(sims.mean() - extra["null_expected"]) <= 4 * sims.std() / math.sqrt(sims.size)
+    assert np.quantile(sims, 0.93) <= extra["null_95"] <= np.quantile(sims, 0.97)

@@ -7,6 +7,7 @@ import math
 import numpy as np
 import pytest
 from metrics_reference import DATASETS, dataset, ref
+from scipy import optimize, stats
 from scipy.special import expit, logit
 from sklearn.metrics import brier_score_loss
 from sklearn.metrics import log_loss as sk_log_loss
@@ -25,9 +26,46 @@ def test_log_loss_matches_sklearn_and_check_values(name: str) -> None:
     # source: docs/methods.md §21 `log_loss` (sklearn 1.9.1) and `log_loss_se` (numpy formula)
     assert r.value == pytest.approx(ref(key, "log_loss"), rel=1e-12)
     assert r.se == pytest.approx(ref(key, "log_loss_se"), rel=1e-10)
-    assert r.ci == pytest.approx((r.value - 1.959963984540054 * r.se,
-                                  r.value + 1.959963984540054 * r.se), rel=1e-12)
+    lt = -(y * np.log(p) + (1 - y) * np.log1p(-p))  # p of the datasets lies inside (ε, 1 − ε)
+    assert r.ci == pytest.approx(hall_interval(lt), rel=1e-9)
+    assert r.extra["interval"] == "hall_skew_corrected_95"
     assert r.extra["eps"] == np.finfo(np.float64).eps
+
+
+def hall_interval(values: np.ndarray) -> tuple[float, float]:
+    """Hall (1992, JRSS B 54:221–228) interval for the mean, solved here by root finding on the
+    forward transformation g(t) = t + a t² + a² t³/3 + b, a = γ/(3√n), b = γ/(6√n), with the
+    sample skewness γ of scipy.stats.skew and T = √n (x̄ − μ)/s (s: numpy std, ddof 1)."""
+    n = values.size
+    mean, sd = float(values.mean()), float(values.std(ddof=1))
+    gamma = float(stats.skew(values))
+    a, b = gamma / (3 * math.sqrt(n)), gamma / (6 * math.sqrt(n))
+    z = float(stats.norm.ppf(0.975))
+
+    def g(t: float) -> float:
+        return t + a * t * t + a * a * t**3 / 3 + b
+
+    t_hi = optimize.brentq(lambda t: g(t) - z, -50, 50)
+    t_lo = optimize.brentq(lambda t: g(t) + z, -50, 50)
+    se = sd / math.sqrt(n)
+    return (mean - se * t_hi, mean - se * t_lo)
+
+
+def test_hall_interval_is_the_normal_one_without_skew_and_leans_right_with_it() -> None:
+    # symmetric scores: γ = 0 and Hall's interval is x̄ ± 1.96 s/√n (Hall 1992)
+    sym = np.array([0.0, 1.0, 2.0, 3.0, 4.0] * 20)
+    r = sc.brier_from_moments(sym.size, float(sym.sum()), float((sym**2).sum()),
+                              M3=float(((sym - sym.mean()) ** 3).sum()))
+    half = float(stats.norm.ppf(0.975)) * sym.std(ddof=1) / math.sqrt(sym.size)
+    assert r.ci == pytest.approx((sym.mean() - half, sym.mean() + half), rel=1e-12)
+    # right-skewed scores: the upper half-width exceeds the lower one (the interval of a mean of
+    # rare large losses), and equals the root-found reference
+    rng = np.random.default_rng(5)
+    skewed = rng.exponential(1.0, 60) ** 2
+    m3 = float(((skewed - skewed.mean()) ** 3).sum())
+    r = sc.log_loss_from_sums(skewed.size, float(skewed.sum()), float((skewed**2).sum()), M3=m3)
+    assert r.ci == pytest.approx(hall_interval(skewed), rel=1e-9)
+    assert r.ci[1] - r.value > r.value - r.ci[0]
 
 
 @pytest.mark.parametrize("name", DATASETS)
@@ -75,6 +113,7 @@ def test_brier_matches_sklearn_and_check_values(name: str) -> None:
     assert b.value == pytest.approx(brier_score_loss(y, p), rel=1e-12)
     assert b.value == pytest.approx(ref(key, "brier"), rel=1e-12)
     assert b.se == pytest.approx(ref(key, "brier_se"), rel=1e-10)
+    assert b.ci == pytest.approx(hall_interval((p - y) ** 2), rel=1e-9)  # Hall (1992), root-found here
     # source: docs/methods.md §21 `brier_expected_if_calibrated` (numpy mean p(1 - p))
     assert b.extra["expected_if_calibrated"] == pytest.approx(
         ref(key, "brier_expected_if_calibrated"), rel=1e-12)

@@ -17,12 +17,39 @@ from calibrant.api.schemas import UploadedReferenceOut
 from calibrant.api.sparse import SparseModel
 from calibrant.rollup.periods import GranularityName
 from calibrant.stats.result import StatusName
-from calibrant.vocabulary.metrics import BY_KEY, COUNT_KEYS, INTERVAL_KEYS, METRIC_KEYS, PeriodKey
+from calibrant.vocabulary.metrics import (
+    BY_KEY,
+    COUNT_KEYS,
+    INTERVAL_KEYS,
+    METRIC_KEYS,
+    NULL_LEVEL_KEYS,
+    P_VALUE_KEYS,
+    PeriodKey,
+)
+
+ESTIMAND = (
+    "Each interval is for the period's population value: the expected value over cases drawn "
+    "like the period's cases, with outcomes from the true outcome process (not a band under the "
+    "assumption that the model is calibrated; docs/methods.md §20.2). Below a metric's floor "
+    "there is no interval."
+)
 
 
 class MetricStatus(BaseModel):
-    state: StatusName = Field(description="measured, too_few_cases or no_value.")
-    reason: str = Field(description="Why there is no trustworthy value, in words one can act on.")
+    state: StatusName = Field(description=(
+        "measured, too_few_cases or no_value. too_few_cases: the period is below the metric's "
+        "floor (fewest events and non-events, docs/methods.md §20.1); it then has no interval, "
+        "and the calibration slopes and AUC have no value."))
+    reason: str = Field(description="Why there is no trustworthy value, in words one can act on; "
+                                    "below a floor it names the floor and the period's counts.")
+
+
+class NullLevel(BaseModel):
+    """What the statistic reads when there is nothing to find, at this period's counts."""
+
+    expected: float = Field(description="Value expected under calibration (ECE) or no drift (PSI).")
+    upper_95: float = Field(description="95 % point of the statistic under that null: a measured value "
+                                        "above it exceeds what noise alone gives 1 time in 20.")
 
 
 class _PeriodBase(SparseModel):
@@ -39,6 +66,16 @@ def _description(key: str) -> str:
     return BY_KEY[key].description
 
 
+_NULL_DESCRIPTIONS = {
+    "ece": ("ECE expected if the model were calibrated, at this period's bins and counts, and its "
+            "95 % point (binomial counts per bin, gamma law for the sum; docs/methods.md §12.1); "
+            "null when ece is not measured."),
+    "psi": ("PSI expected without drift, (B − 1)(1/n + 1/m), and its 95 % point "
+            "χ²_{0.95,B−1}(1/n + 1/m), n and m the period's and the reference's counts "
+            "(docs/methods.md §17.2); null when psi is not measured."),
+}
+
+
 def _period_fields() -> dict[str, Any]:
     fields: dict[str, Any] = {}
     for count_key in COUNT_KEYS:
@@ -48,7 +85,19 @@ def _period_fields() -> dict[str, Any]:
         if key in INTERVAL_KEYS:
             fields[f"{key}_ci"] = (
                 tuple[float, float] | None,
-                Field(description=f"95 % interval [low, high] of {key}; null when there is none."),
+                Field(description=f"95 % interval [low, high] of {key}; null when there is none. "
+                                  + ESTIMAND),
+            )
+        if key in P_VALUE_KEYS:
+            fields[f"{key}_p_value"] = (
+                float | None,
+                Field(description=f"Two-sided p-value of {key} under calibration (normal law); "
+                                  "null when the statistic is not measured."),
+            )
+        if key in NULL_LEVEL_KEYS:
+            fields[f"{key}_null"] = (
+                NullLevel | None,
+                Field(description=_NULL_DESCRIPTIONS[key]),
             )
     fields["status"] = (
         dict[PeriodKey, MetricStatus],
@@ -96,6 +145,13 @@ class ReliabilityOut(BaseModel):
     interval: str = Field(description="The interval method of observed_rate_ci.")
     status: MetricStatus
     bins: list[ReliabilityBin]
+    ece: float | None = Field(description="ECE over these bins; null below its floor (5 events and "
+                                          "5 non-events) or when there are no cases.")
+    ece_null: NullLevel | None = Field(description=_NULL_DESCRIPTIONS["ece"])
+    spiegelhalter_z: float | None = Field(description="Spiegelhalter's z over the diagram's cases; "
+                                                      "null below its floor (5 events and 5 non-events).")
+    spiegelhalter_z_p_value: float | None = Field(
+        description="Two-sided normal p-value of spiegelhalter_z under calibration.")
 
 
 class ReferenceUploadOut(BaseModel):

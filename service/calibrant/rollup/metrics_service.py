@@ -16,12 +16,19 @@ from calibrant.rollup.references import reference_summary
 from calibrant.stats.reliability import ReliabilityDiagram
 from calibrant.stats.result import Estimate
 from calibrant.stats.summary import Summary
-from calibrant.stats.summary_binned import reliability_diagram
+from calibrant.stats.summary_binned import ece, reliability_diagram
+from calibrant.stats.summary_metrics import spiegelhalter_z
 from calibrant.store import rollup_repo
 from calibrant.store.tables import Model
 from calibrant.store.unit import Session
 from calibrant.vocabulary.instants import required_instant
-from calibrant.vocabulary.metrics import COUNT_KEYS, INTERVAL_KEYS, METRIC_KEYS
+from calibrant.vocabulary.metrics import (
+    COUNT_KEYS,
+    INTERVAL_KEYS,
+    METRIC_KEYS,
+    NULL_LEVEL_KEYS,
+    P_VALUE_KEYS,
+)
 from calibrant.vocabulary.segments import ALL_SEGMENT, parse_tag
 
 MAX_PERIODS = 1000
@@ -73,10 +80,28 @@ def serialise(metrics: dict[str, Estimate]) -> dict[str, Any]:
         out[key] = count(value) if key in COUNT_KEYS else value
         if key in INTERVAL_KEYS:
             out[f"{key}_ci"] = list(est.ci) if est.ci is not None and value is not None else None
+        if key in P_VALUE_KEYS:
+            out[f"{key}_p_value"] = p_value(est)
+        if key in NULL_LEVEL_KEYS:
+            out[f"{key}_null"] = null_level(est)
         if value is None or not est.measured:
             status[key] = {"state": est.status.value, "reason": est.reason}
     out["status"] = status
     return out
+
+
+def p_value(est: Estimate) -> float | None:
+    """The two-sided p-value a statistic carries, when it is measured (not below its floor)."""
+    p = est.extra.get("p_value")
+    return float(p) if est.measured and isinstance(p, float | int) else None
+
+
+def null_level(est: Estimate) -> dict[str, float] | None:
+    """{expected, upper_95} under the null, from ``extra['null_expected']`` and ``extra['null_95']``."""
+    mean, upper = est.extra.get("null_expected"), est.extra.get("null_95")
+    if not est.measured or not isinstance(mean, float | int) or not isinstance(upper, float | int):
+        return None
+    return {"expected": float(mean), "upper_95": float(upper)}
 
 
 def metrics(
@@ -162,10 +187,17 @@ def reliability(
         boundary=boundary,
     )
     mature = Summary.merge_many(list(days.mature.values()))
-    diagram = reliability_diagram(
-        mature.labeled(bool(model.implicit_negatives)), n_bins=bins, strategy=strategy
-    )
+    labeled = mature.labeled(bool(model.implicit_negatives))
+    diagram = reliability_diagram(labeled, n_bins=bins, strategy=strategy)
+    tests = {"ece": ece(labeled, n_bins=bins, strategy=strategy), "spiegelhalter_z": spiegelhalter_z(labeled)}
+    counts = mature.counts()
+    non_events = counts["negative"] + (counts["unlabeled"] if model.implicit_negatives else 0.0)
+    query.apply_floors(tests, counts["positive"], non_events)
     return {
+        "ece": tests["ece"].value if tests["ece"].measured else None,
+        "ece_null": null_level(tests["ece"]),
+        "spiegelhalter_z": tests["spiegelhalter_z"].value if tests["spiegelhalter_z"].measured else None,
+        "spiegelhalter_z_p_value": p_value(tests["spiegelhalter_z"]),
         "model": model.name,
         "start": sel.start,
         "end": sel.end,

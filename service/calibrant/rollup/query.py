@@ -160,6 +160,9 @@ def period_metrics(
         out["psi"] = missing(Status.TOO_FEW_CASES, "no predictions in this period")
     else:
         out["psi"] = psi(everything, reference)
+    counts = mature.counts()
+    non_events = counts["negative"] + (counts["unlabeled"] if model.implicit_negatives else 0.0)
+    apply_floors(out, counts["positive"], non_events)
     if model.outcome_horizon_days is not None and mature.is_empty() and not everything.is_empty():
         for key in metrics.METRIC_KEYS:
             if key not in metrics.LABEL_FREE_KEYS and key in out:
@@ -168,3 +171,25 @@ def period_metrics(
                     "no mature predictions yet: outcomes are still inside horizon + lag",
                 )
     return out
+
+
+def apply_floors(out: dict[str, Estimate], n_events: float, n_non_events: float) -> None:
+    """Mark every metric below its registry floor ``too_few_cases`` (docs/methods.md §20.1).
+
+    Below the floor the metric keeps no interval and no standard error; the
+    slope and AUC (``withhold_value``) keep no value either. The reason names
+    the floor and the period's counts, so a reader knows how much more data
+    the metric needs.
+    """
+    for metric in metrics.METRICS:
+        floor = metric.floor
+        if floor is None or metric.key not in out or floor.met(n_events, n_non_events):
+            continue
+        est = out[metric.key]
+        out[metric.key] = Estimate(
+            value=None if floor.withhold_value else est.value,
+            status=Status.TOO_FEW_CASES,
+            reason=floor.reason(n_events, n_non_events),
+            n=est.n,
+            extra=est.extra,
+        )

@@ -13,6 +13,7 @@ import math
 
 import numpy as np
 from numpy.typing import ArrayLike
+from scipy import stats
 from scipy.special import expit, logit
 
 from calibrant.stats._numerics import Z95
@@ -44,9 +45,17 @@ def class_counts_by_score(
 
 
 def auc_from_class_counts(
-    neg_counts: ArrayLike, pos_counts: ArrayLike, *, min_per_class: int = MIN_PER_CLASS_INTERVAL
+    neg_counts: ArrayLike, pos_counts: ArrayLike, *, min_per_class: int = MIN_PER_CLASS_INTERVAL,
+    small_sample_t: bool = False,
 ) -> Estimate:
     """AUC and DeLong SE from class weights per tied-score group, in ascending score order.
+
+    ``small_sample_t``: the logit interval uses Student's t quantile with
+    min(N1, N0) − 1 degrees of freedom instead of 1.96. The DeLong variance is
+    estimated from the placements of the smaller class, so with 10–20 events the
+    normal quantile undercovers (92.7 % at 95 % on Beta(1, 20), n = 200); the t
+    quantile is our small-sample choice (common practice for a studentised
+    statistic, no published source for this use), checked by tests/bench/coverage.py.
 
     With N0_below,k the non-event weight in groups below k:
     AUC = Σ_k n1k (N0_below,k + ½ n0k) / (N1 N0). Placement values per group:
@@ -77,7 +86,9 @@ def auc_from_class_counts(
     if not 0.0 < auc < 1.0 or se <= 0.0:
         return estimate(auc, se=se, n=N0 + N1, extra=extra,
                         reason="logit interval undefined at AUC 0 or 1")
-    half = Z95 * se / (auc * (1.0 - auc))
+    quantile = float(stats.t.ppf(0.975, min(N1, N0) - 1.0)) if small_sample_t else Z95
+    extra["interval"] = "delong_logit_t_95" if small_sample_t else "delong_logit_95"
+    half = quantile * se / (auc * (1.0 - auc))
     ci = (float(expit(logit(auc) - half)), float(expit(logit(auc) + half)))
     return estimate(auc, se=se, ci=ci, n=N0 + N1, extra=extra)
 

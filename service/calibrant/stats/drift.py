@@ -124,6 +124,7 @@ def psi_from_counts(
     if B < 2:
         return missing(Status.NO_VALUE, "need at least 2 bins", extra=extra)
     extra["null_95"] = float(stats.chi2.ppf(0.95, B - 1)) * (1.0 / n + 1.0 / m)
+    extra["null_expected"] = (B - 1) * (1.0 / n + 1.0 / m)  # the mean of (1/n + 1/m)·χ²_{B−1}
     value = _psi_value(r, c, smoothing)
     if not math.isfinite(value):
         return missing(Status.NO_VALUE,
@@ -159,7 +160,8 @@ def psi(
 
     Reference level (``extra['null_95']``): under no shift PSI ≈ (1/n + 1/m)·χ²_{B−1},
     so the null 95 % point is χ²_{0.95,B−1}(1/n + 1/m) (0.0169 for n = m = 2000,
-    B = 10; 0.34 for n = m = 100). ``n_null > 0`` adds a seeded multinomial
+    B = 10; 0.34 for n = m = 100) and the value expected under no shift
+    (``extra['null_expected']``) is (B − 1)(1/n + 1/m). ``n_null > 0`` adds a seeded multinomial
     simulation of the same (``extra['null_95_simulated']``). The fixed levels
     0.1 ("minor") and 0.25 ("major") are common practice with no published
     source and no regard to sample size; they appear in ``extra`` only as

@@ -15,7 +15,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import stats
+from scipy import optimize, stats
 from scipy.special import expit
 
 from calibrant.stats._numerics import Z95, clipped_logit, norm_two_sided_p, weighted_quantile
@@ -139,9 +139,34 @@ def _citl(y: np.ndarray, x: np.ndarray, w: np.ndarray, n1: float, n0: float) -> 
     a, se = float(fit.params[0]), math.sqrt(fit.cov[0, 0])
     ll0 = _loglik(x, y, w)
     lr = max(2.0 * (fit.loglik - ll0), 0.0)
-    return estimate(a, se=se, ci=(a - Z95 * se, a + Z95 * se), n=n1 + n0, extra={
+    ci = _citl_score_interval(y, x, w, a)
+    return estimate(a, se=se, ci=ci, n=n1 + n0, extra={
         "p_value_wald": norm_two_sided_p(a / se), "lr_statistic": lr,
-        "p_value_lr": float(stats.chi2.sf(lr, 1)), "n_iter": fit.n_iter})
+        "p_value_lr": float(stats.chi2.sf(lr, 1)), "n_iter": fit.n_iter,
+        "interval": "robust_score_95"})
+
+
+def _citl_score_interval(y: np.ndarray, x: np.ndarray, w: np.ndarray, a_hat: float
+                         ) -> tuple[float, float] | None:
+    """Robust score interval of the calibration intercept: {a : |S(a)| ≤ 1.96}.
+
+    S(a) = Σw(y − π_a) / sqrt(Σw(y − π_a)²), π_a = expit(a + x): the score of
+    the offset model standardised by its empirical (sandwich) variance at the
+    hypothesised a, so the band does not assume the slope is 1 (Boos 1992,
+    The American Statistician 46(4):327–333, score tests with the robust
+    variance; from memory). S falls from √n1 (a → −∞) to −√n0 (a → +∞), so
+    with at least 4 of each class both ends exist; None otherwise.
+    """
+    def s(a: float) -> float:
+        r = y - expit(a + x)
+        return float(w @ r) / math.sqrt(max(float(w @ (r * r)), 1e-300))
+
+    try:
+        lo = optimize.brentq(lambda a: s(a) - Z95, a_hat - 40.0, a_hat, xtol=1e-10)
+        hi = optimize.brentq(lambda a: s(a) + Z95, a_hat, a_hat + 40.0, xtol=1e-10)
+    except ValueError:  # no sign change: too few of a class for a 95 % band
+        return None
+    return (float(lo), float(hi))
 
 
 def calibration_intercept(
@@ -152,7 +177,8 @@ def calibration_intercept(
     Fit logit P(y = 1) = a + x_i with x_i = logit(p_i) (clipped at ε) as an
     offset (slope fixed at 1); â solves Σ y = Σ expit(x_i + a): the shift of
     all logits that makes predicted and observed events agree.
-    SE = 1/sqrt(Σ π̂(1 − π̂)) (inverse Fisher information); Wald 95 % interval.
+    SE = 1/sqrt(Σ π̂(1 − π̂)) (inverse Fisher information); the 95 % interval is the
+    robust score interval of :func:`_citl_score_interval` (docs/methods.md §9.1).
     ``extra``: Wald p-value, likelihood-ratio statistic 2(ℓ_a − ℓ_0) and its
     χ²₁ p-value. This is *not* the intercept of the free-slope model
     (:func:`recalibration_intercept`).

@@ -29,6 +29,7 @@ from calibrant.stats._numerics import (
     variance_from_sums,
 )
 from calibrant.stats._validation import EPS, as_labeled, as_scores
+from calibrant.stats.intervals import skew_corrected_interval
 from calibrant.stats.result import Estimate, Status, estimate, missing
 
 __all__ = [
@@ -64,21 +65,36 @@ def log_loss_from_sums(
     *,
     n_clipped: float = 0,
     n_confident_errors: float = 0,
+    M3: float | None = None,
 ) -> Estimate:
-    """Mean log-loss, its standard error and normal 95 % interval from sums.
+    """Mean log-loss, its standard error and 95 % interval from sums.
 
     LL = Sl / n; SE = sqrt((Sll − Sl²/n)/(n − 1)) / sqrt(n) (ddof 1, variance
-    clamped at 0). Empty → no_value; n ≤ 1 gives the value without SE.
-    ``extra`` records ε and the clipped / confident-error counts.
+    clamped at 0). With ``M3`` = Σ(ℓ − LL)³ the interval is Hall's skewness-
+    corrected one (:func:`calibrant.stats.intervals.skew_corrected_interval`),
+    else LL ± 1.96 SE. Empty → no_value; n ≤ 1 gives the value without SE.
+    ``extra`` records ε, the clipped / confident-error counts and the interval method.
     """
-    extra = {"eps": EPS, "n_clipped": n_clipped, "n_confident_errors": n_confident_errors}
+    extra: dict[str, float | int | str | None] = {
+        "eps": EPS, "n_clipped": n_clipped, "n_confident_errors": n_confident_errors}
     if n <= 0:
         return missing(Status.NO_VALUE, _EMPTY, n=0.0, extra=extra)
     ll = Sl / n
-    var = variance_from_sums(n, Sl, Sll)
+    return _mean_score(ll, n, variance_from_sums(n, Sl, Sll), M3, extra)
+
+
+def _mean_score(mean: float, n: float, var: float, M3: float | None,
+                extra: dict[str, float | int | str | None]) -> Estimate:
+    """A mean score with its SE and interval: Hall's when the third moment is known, else normal."""
     se = math.sqrt(var / n) if math.isfinite(var) else None
-    ci = (ll - Z95 * se, ll + Z95 * se) if se is not None else None
-    return estimate(ll, se=se, ci=ci, n=n, extra=extra)
+    ci = None
+    if se is not None and M3 is not None:
+        ci = skew_corrected_interval(mean, math.sqrt(var), M3 / n, n)
+        extra["interval"] = "hall_skew_corrected_95"
+    if ci is None and se is not None:
+        ci = (mean - Z95 * se, mean + Z95 * se)
+        extra["interval"] = "normal_95"
+    return estimate(mean, se=se, ci=ci, n=n, extra=extra)
 
 
 def log_loss(
@@ -91,8 +107,9 @@ def log_loss(
     (what ``sklearn.metrics.log_loss`` does for float64 input; input is always
     cast to float64, so float32 input gives the float64 answer). The cap per
     row is −ln ε = 36.04 nats.
-    SE = sd(ℓ_i, ddof 1)/√n; interval LL ± 1.96 SE (poor when a few confident
-    errors make ℓ skewed: use a bootstrap then).
+    SE = sd(ℓ_i, ddof 1)/√n; the 95 % interval is Hall's (1992) skewness-corrected
+    interval for the population mean of ℓ (docs/methods.md §5.1), which keeps
+    its coverage where a few events carry the mean.
 
     ``extra``: ``eps``; ``n_clipped`` (weight of rows with p < ε or p > 1 − ε);
     ``n_confident_errors`` (weight of rows with y = 1, p < 1e-6 or y = 0,
@@ -112,12 +129,14 @@ def log_loss(
     confident = ((y == 1.0) & (p < CONFIDENT_ERROR_THRESHOLD)) | (
         (y == 0.0) & (p > 1.0 - CONFIDENT_ERROR_THRESHOLD)
     )
+    mean = float(w @ lt) / d.n if d.n > 0 else 0.0
     return log_loss_from_sums(
         d.n,
         float(w @ lt),
         float(w @ (lt * lt)),
         n_clipped=_count(w, clipped),
         n_confident_errors=_count(w, confident),
+        M3=float(w @ (lt - mean) ** 3),
     )
 
 
@@ -282,20 +301,20 @@ def squared_error_sums_from_power_sums(
 
 
 def brier_from_moments(
-    n: float, Sse: float, Sse2: float, *, Spq: float | None = None
+    n: float, Sse: float, Sse2: float, *, Spq: float | None = None, M3: float | None = None
 ) -> Estimate:
-    """Brier score Sse/n with SE sqrt((Sse2 − Sse²/n)/(n − 1))/√n and normal 95 % interval.
+    """Brier score Sse/n with SE sqrt((Sse2 − Sse²/n)/(n − 1))/√n and a 95 % interval.
 
+    With ``M3`` = Σ((p − y)² − BS)³ the interval is Hall's skewness-corrected one
+    (:func:`calibrant.stats.intervals.skew_corrected_interval`), else BS ± 1.96 SE.
     ``Spq`` = Σ p(1 − p), when given, adds ``extra['expected_if_calibrated']`` = Spq/n.
     """
-    extra = {} if Spq is None else {"expected_if_calibrated": Spq / n if n > 0 else None}
+    extra: dict[str, float | int | str | None] = (
+        {} if Spq is None else {"expected_if_calibrated": Spq / n if n > 0 else None})
     if n <= 0:
         return missing(Status.NO_VALUE, _EMPTY, n=0.0)
     bs = Sse / n
-    var = variance_from_sums(n, Sse, Sse2)
-    se = math.sqrt(var / n) if math.isfinite(var) else None
-    ci = (bs - Z95 * se, bs + Z95 * se) if se is not None else None
-    return estimate(bs, se=se, ci=ci, n=n, extra=extra)
+    return _mean_score(bs, n, variance_from_sums(n, Sse, Sse2), M3, extra)
 
 
 def brier_score(
@@ -303,7 +322,8 @@ def brier_score(
 ) -> Estimate:
     """Brier score BS = (1/n) Σ (p_i − y_i)² with SE and normal 95 % interval.
 
-    SE = sd((p − y)², ddof 1)/√n. ``extra['expected_if_calibrated']`` = (1/n) Σ p(1 − p),
+    SE = sd((p − y)², ddof 1)/√n; 95 % interval by Hall's (1992) skewness
+    correction (docs/methods.md §6.1). ``extra['expected_if_calibrated']`` = (1/n) Σ p(1 − p),
     the value expected if y_i ~ Bernoulli(p_i). Same number as
     ``sklearn.metrics.brier_score_loss`` for binary input (range [0, 1]).
 
@@ -317,8 +337,10 @@ def brier_score(
     """
     d = as_labeled(y_true, y_proba, sample_weight)
     se2 = (d.p - d.y) ** 2
+    mean = float(d.w @ se2) / d.n if d.n > 0 else 0.0
     return brier_from_moments(
-        d.n, float(d.w @ se2), float(d.w @ (se2 * se2)), Spq=float(d.w @ (d.p * (1.0 - d.p)))
+        d.n, float(d.w @ se2), float(d.w @ (se2 * se2)), Spq=float(d.w @ (d.p * (1.0 - d.p))),
+        M3=float(d.w @ (se2 - mean) ** 3),
     )
 
 

@@ -25,6 +25,7 @@ from calibrant.stats.calibration_error import (
     ICI_MIN_EVENTS,
     SmoothCalibration,
     ece_from_bin_sums,
+    ece_null_from_bin_sums,
     lowess,
     smooth_calibration_from_fit,
 )
@@ -132,6 +133,10 @@ def ece(data: Summary | LabeledBins, *, n_bins: int = 10, strategy: str = "unifo
         implicit_negatives: bool = False) -> Estimate:
     """Positive-class ECE (MCE in ``extra``); exact for uniform bins, snapped edges for quantile.
 
+    ``extra['null_expected']`` and ``extra['null_95']``: the ECE expected under
+    calibration at these bins and counts, and its 95 % point
+    (:func:`calibrant.stats.calibration_error.ece_null_from_bin_sums`).
+
     Bins are left-closed [lo, hi) like the fine grid (the array version's
     ``closed="left"``). Naeini, Cooper & Hauskrecht (2015); docs/methods.md §12.
     """
@@ -141,6 +146,9 @@ def ece(data: Summary | LabeledBins, *, n_bins: int = 10, strategy: str = "unifo
     res = ece_from_bin_sums(s["n"], s["sp"], s["o"])
     res.extra.update(strategy=strategy, closed="left", n_bins=int(edges.size - 1),
                      edges=",".join(f"{e:.17g}" for e in edges))
+    null = ece_null_from_bin_sums(s["n"], s["sp"]) if res.measured else None
+    if null is not None:
+        res.extra.update(null_expected=null[0], null_95=null[1])
     return res
 
 
@@ -196,14 +204,15 @@ def logistic_recalibration(data: Summary | LabeledBins, *, implicit_negatives: b
 
 # ----------------------------------------------------------------------------- discrimination
 def auc(data: Summary | LabeledBins, *, implicit_negatives: bool = False,
-        min_per_class: int = MIN_PER_CLASS_INTERVAL) -> Estimate:
-    """ROC AUC with DeLong SE and logit interval, fine bins as ties.
+        min_per_class: int = MIN_PER_CLASS_INTERVAL, small_sample_t: bool = False) -> Estimate:
+    """ROC AUC with DeLong SE and logit interval, fine bins as ties (``small_sample_t``: see
+    :func:`calibrant.stats.discrimination.auc_from_class_counts`).
 
     ``extra['binning_error_bound']`` = ½ Σ_k n1k n0k/(n1 n0) bounds |AUC_bins − AUC_rows|.
     """
     v = view(data, implicit_negatives)
     n1k, n0k = v.pos[:, F["n"]], v.neg[:, F["n"]]
-    res = auc_from_class_counts(n0k, n1k, min_per_class=min_per_class)
+    res = auc_from_class_counts(n0k, n1k, min_per_class=min_per_class, small_sample_t=small_sample_t)
     if res.value is not None:
         res.extra["binning_error_bound"] = float(0.5 * (n1k @ n0k) / (n1k.sum() * n0k.sum()))
     return res

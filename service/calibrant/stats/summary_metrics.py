@@ -19,6 +19,8 @@ from __future__ import annotations
 import math
 from collections.abc import Collection
 
+import numpy as np
+
 from calibrant.stats import summary_binned as binned
 from calibrant.stats._numerics import Z95
 from calibrant.stats.calibration import (
@@ -41,6 +43,9 @@ from calibrant.stats.scoring import (
 )
 from calibrant.stats.summary import F, LabeledBins, Summary, view
 from calibrant.stats.summary_drift import psi
+
+#: fewest events and non-events for the AUC interval of a period (docs/methods.md §15.2)
+AUC_INTERVAL_MIN_PER_CLASS = 10
 
 __all__ = [
     "all_metrics",
@@ -172,15 +177,40 @@ def n_confident_errors(data: Summary | LabeledBins, *, implicit_negatives: bool 
 
 # ----------------------------------------------------------------------------- log-loss
 def log_loss(data: Summary | LabeledBins, *, implicit_negatives: bool = False) -> Estimate:
-    """Mean clipped log-loss Sl/n, SE sqrt((Sll − Sl²/n)/(n − 1)/n), normal 95 % interval.
+    """Mean clipped log-loss Sl/n, SE sqrt((Sll − Sl²/n)/(n − 1)/n), Hall's 95 % interval.
+
+    The interval's third moment comes from the cells (:func:`_third_central_from_cells`).
 
     Exact from the bucket (docs/methods.md §5 and 0.2); ``extra`` carries ε and the
     clipped / confident-error counts stored in the summary.
     """
-    t = _Totals(view(data, implicit_negatives))
+    v = view(data, implicit_negatives)
+    t = _Totals(v)
+    m3 = None
+    if t.n > 0:
+        cells = np.concatenate([v.pos, v.neg])
+        m3 = _third_central_from_cells(cells[:, F["n"]], cells[:, F["sl"]], cells[:, F["sll"]],
+                                       t["all", "sl"] / t.n)
     return log_loss_from_sums(t.n, t["all", "sl"], t["all", "sll"],
                               n_clipped=_count(t["all", "n_clip"]),
-                              n_confident_errors=_count(t["all", "n_conf"]))
+                              n_confident_errors=_count(t["all", "n_conf"]), M3=m3)
+
+
+def _third_central_from_cells(n: np.ndarray, total: np.ndarray, squares: np.ndarray,
+                              mean: float) -> float:
+    """Σ(s − mean)³ over every case from per-cell (count, Σs, Σs²), s a per-case score.
+
+    Exact per cell up to its within-cell third central moment, which is left
+    out: Σ_c [n_c (m_c − mean)³ + 3 (m_c − mean) Σ_c (s − m_c)²], m_c the cell
+    mean. A cell (fine bin 0.05 wide in logit, one class) holds nearly equal
+    scores, so the omitted term is of third order in that width.
+    """
+    keep = n > 0
+    n, total, squares = n[keep], total[keep], squares[keep]
+    m = total / n
+    within = np.maximum(squares - total * m, 0.0)
+    d = m - mean
+    return float(np.sum(n * d**3 + 3.0 * d * within))
 
 
 def _count(x: float) -> float | int:
@@ -221,10 +251,22 @@ def _squared_error_sums(t: _Totals) -> tuple[float, float]:
 
 
 def brier(data: Summary | LabeledBins, *, implicit_negatives: bool = False) -> Estimate:
-    """Brier score Σ(p − y)²/n with SE from Σ(p − y)⁴ (both from S1..S4 per class; exact)."""
-    t = _Totals(view(data, implicit_negatives))
+    """Brier score Σ(p − y)²/n with SE from Σ(p − y)⁴ (both from S1..S4 per class; exact);
+    Hall's 95 % interval with the third moment from the cells (:func:`_third_central_from_cells`)."""
+    v = view(data, implicit_negatives)
+    t = _Totals(v)
     sse, sse2 = _squared_error_sums(t)
-    return brier_from_moments(t.n, sse, sse2, Spq=t["all", "s1"] - t["all", "s2"])
+    m3 = None
+    if t.n > 0:
+        pos, neg = v.pos, v.neg
+        n1, s1, s2, s3, s4 = (pos[:, F[f]] for f in ("n", "s1", "s2", "s3", "s4"))
+        # an event scores (1 − p)², a non-event p² (expanded in the stored power sums)
+        m3 = _third_central_from_cells(
+            np.concatenate([n1, neg[:, F["n"]]]),
+            np.concatenate([n1 - 2.0 * s1 + s2, neg[:, F["s2"]]]),
+            np.concatenate([n1 - 4.0 * s1 + 6.0 * s2 - 4.0 * s3 + s4, neg[:, F["s4"]]]),
+            sse / t.n)
+    return brier_from_moments(t.n, sse, sse2, Spq=t["all", "s1"] - t["all", "s2"], M3=m3)
 
 
 def expected_brier(data: Summary | LabeledBins) -> Estimate:
@@ -331,7 +373,9 @@ def all_metrics(
     if wanted("ece"):
         out["ece"] = binned.ece(v, n_bins=n_bins)
     if wanted("auc"):
-        out["auc"] = binned.auc(v)
+        # the interval from the registry's AUC floor on (10 of each), with the t quantile that keeps
+        # DeLong's logit interval at its coverage there (tests/bench/coverage.py)
+        out["auc"] = binned.auc(v, min_per_class=AUC_INTERVAL_MIN_PER_CLASS, small_sample_t=True)
     out["psi"] = (psi(summary, reference) if reference is not None
                   else missing(Status.NO_VALUE, "no reference summary given"))
     return out
