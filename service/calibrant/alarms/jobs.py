@@ -13,6 +13,7 @@ from datetime import datetime
 
 from calibrant.alarms import budget, charts, feeds, kinds, service, windows
 from calibrant.clock import Clock
+from calibrant.rollup import outcome_delay
 from calibrant.store import alarm_repo
 from calibrant.store.engine import make_session_factory
 from calibrant.store.tables import Model
@@ -33,7 +34,12 @@ class EvaluationReport:
 
 
 def evaluate_model(session: Session, model: Model, now: datetime, report: EvaluationReport) -> None:
-    """Everything the model's rules have to say at ``now`` (flushes; the caller commits)."""
+    """Everything the model's rules have to say at ``now`` (flushes; the caller commits).
+
+    The outcome delay is measured first (at most hourly): how long the rules wait for a case
+    to be complete depends on it.
+    """
+    outcome_delay.refresh(session.connection(), model, now)
     done = charts.run(session, model, now)
     report.cases += done.cases
     report.designs += done.designs
