@@ -42,7 +42,7 @@ def _stream(seed: int) -> tuple[list[str], np.ndarray, list, np.ndarray, list]:
     return ids, p, scored, y, observed
 
 
-def _post(client, ids, p, scored, y, observed, lo, hi) -> None:
+def _post(client, ids, y, observed, lo, hi) -> None:
     """Post the outcomes reported in (lo, hi]."""
     items = [{"id": i, "label": int(lab), "observed_at": iso(o)}
              for i, lab, o in zip(ids, y, observed, strict=True) if lo < o <= hi]
@@ -69,7 +69,8 @@ def test_weeks_of_a_model_without_horizon_are_provisional_until_their_labels_are
     ids, p, scored, y, observed = _stream(15)
     watched = 7  # the week of days 49-55: provisional a week after it closed, final five weeks later
     watched_start = T0 + timedelta(days=7 * watched)
-    phases = [watched_start + timedelta(days=14), T0 + timedelta(days=DAYS), watched_start + timedelta(days=42)]
+    phases = [watched_start + timedelta(days=14), T0 + timedelta(days=DAYS),
+              watched_start + timedelta(days=42)]
     clock = FixedClock(phases[0])
     posted, last = 0, T0 - timedelta(days=1)
     with make_client(db, clock=clock) as client:
@@ -79,11 +80,12 @@ def test_weeks_of_a_model_without_horizon_are_provisional_until_their_labels_are
             new = [k for k in range(posted, len(ids)) if scored[k] <= now]
             for lo in range(0, len(new), 10_000):
                 part = new[lo:lo + 10_000]
-                preds = [{"id": ids[k], "probability": float(p[k]), "scored_at": iso(scored[k])} for k in part]
+                preds = [{"id": ids[k], "probability": float(p[k]), "scored_at": iso(scored[k])}
+                         for k in part]
                 assert client.post("/v1/models/late/predictions",
                                    json={"predictions": preds}).status_code == 200
             posted += len(new)
-            _post(client, ids, p, scored, y, observed, last, now)
+            _post(client, ids, y, observed, last, now)
             last = now
             refresh(client)
             periods = _weeks(client, now)
