@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import datetime
 
-from calibrant.alarms import budget, charts, feeds, kinds, service, windows
+from calibrant.alarms import budget, charts, feeds, kinds, restatements, service, windows
 from calibrant.clock import Clock
 from calibrant.rollup import outcome_delay
 from calibrant.store import alarm_repo
@@ -58,6 +58,7 @@ def evaluate_model(session: Session, model: Model, now: datetime, report: Evalua
             f = feeds.evaluate_rule(session, model, rule, now, share=split.share_of(rule.name))
             report.opened += f.opened
             report.resolved += f.resolved
+    restatements.restate(session, model, now)
 
 
 def evaluate_all(engine: Engine, now: datetime) -> EvaluationReport:
