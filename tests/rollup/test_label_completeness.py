@@ -1,6 +1,6 @@
 """Label completeness and provisional periods of a model without a horizon, on both databases.
 
-The stream: 10 weeks of traffic, 150 cases a day scored in the first four hours
+The stream: 10 weeks of traffic, 120 cases a day scored in the first two hours
 of each day, every outcome reported after a Gamma(shape 3, scale 3) delay (mean
 9 days; p95 18.9 days by scipy.stats.gamma). Only outcomes whose report time has
 passed are posted. The truth of a week's completeness is the share of its
@@ -23,7 +23,7 @@ from tests.alarms.streams import T0, iso, refresh
 from tests.conftest import make_client
 
 DAYS = 70
-PER_DAY = 150
+PER_DAY = 120
 SHAPE, SCALE = 3.0, 3.0  # Gamma: mean 9 days
 
 
@@ -31,7 +31,7 @@ def _stream(seed: int) -> tuple[list[str], np.ndarray, list, np.ndarray, list]:
     rng = np.random.default_rng(seed)
     ids, scored = [], []
     for day in range(DAYS):
-        seconds = np.sort(rng.integers(0, 4 * 3600, PER_DAY))
+        seconds = np.sort(rng.integers(0, 2 * 3600, PER_DAY))
         for i, s in enumerate(seconds):
             ids.append(f"d{day}-{i}")
             scored.append(T0 + timedelta(days=day, seconds=int(s)))

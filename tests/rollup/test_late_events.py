@@ -30,7 +30,7 @@ def _stream(seed: int):
     n = DAYS * PER_DAY
     day = np.repeat(np.arange(DAYS), PER_DAY)
     scored = [T0 + timedelta(days=int(d), seconds=int(s))
-              for d, s in zip(day, rng.integers(0, 4 * 3600, n), strict=True)]
+              for d, s in zip(day, rng.integers(0, 2 * 3600, n), strict=True)]
     p = rng.beta(2, 8, n)
     event = rng.random(n) < p
     lognormal = stats.lognorm(0.9, scale=2.0)
