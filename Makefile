@@ -48,6 +48,7 @@ bench: $(STAMP)
 	$(BIN)/python -m tests.bench.null_year
 	$(BIN)/python -m tests.bench.null_year_service
 	$(BIN)/python -m tests.bench.hosmer_lemeshow_null
+	$(BIN)/python -m tests.bench.delay
 
 clean:
 	rm -rf $(VENV) var .pytest_cache
