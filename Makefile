@@ -66,6 +66,7 @@ bench: $(STAMP)
 	$(BIN)/python -m tests.bench.pages
 	$(BIN)/python -m tests.bench.report
 	$(BIN)/python -m tests.bench.coverage
+	$(BIN)/python -m tests.bench.delay
 
 clean:
 	rm -rf $(VENV) var .pytest_cache

@@ -5,7 +5,7 @@ SHA-256 is stored here with the key it stands for and when it expires. The pages
 accept the cookie; the API never does.
 
 Revision ID: 0010
-Revises: 0008
+Revises: 0009
 Create Date: 2026-12-03
 """
 
@@ -15,7 +15,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = "0010"
-down_revision = "0008"
+down_revision = "0009"
 branch_labels = None
 depends_on = None
 

@@ -79,6 +79,10 @@ CASES: list[BadInput] = [
     outcomes("observed_at before year 1 once in UTC", 422, "observed_at",
              observed_at="0001-01-01T00:30:00+01:00"),
     outcomes("observed_at in 2099", 422, "observed_at", observed_at="2099-06-01T00:00:00Z"),
+    outcomes("occurred_at in 1970", 422, "occurred_at", occurred_at="1970-01-01T00:00:00Z"),
+    outcomes("occurred_at in 9999", 422, "occurred_at", occurred_at="9999-12-31T23:59:59Z"),
+    outcomes("occurred_at after observed_at", 422, "occurred_at", occurred_at="2026-05-22T10:00:00Z"),
+    outcomes("occurred_at without an offset", 422, "occurred_at", occurred_at="2026-05-20T10:00:00"),
     # Content types: only application/json bodies, as is or gzip.
     BadInput("text/plain body", "POST", PREDICTIONS_PATH, 415, content=BODY,
              headers={"content-type": "text/plain"}),

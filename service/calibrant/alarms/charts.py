@@ -26,7 +26,7 @@ from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass, field, replace
-from datetime import UTC, datetime
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import numpy as np
@@ -35,9 +35,11 @@ from calibrant.alarms import budget, records
 from calibrant.alarms.kinds import calibration_chart, evaluated_as
 from calibrant.alarms.kinds.calibration_chart import ChartParams
 from calibrant.clock import rfc3339
+from calibrant.rollup import outcome_delay
 from calibrant.rollup.compute import SegmentBook
 from calibrant.stats.cusum import CusumState, new_chart
 from calibrant.stats.cusum_design import arl0_for_false_alarm_budget, design_cusum
+from calibrant.stats.outcome_delay import DelayDistribution
 from calibrant.store import alarm_repo, rollup_repo
 from calibrant.store.alarm_tables import Alarm, AlarmRule, ChartStream
 from calibrant.store.mature_cases import MatureCases, mature_case_windows, outcomes_received_since
@@ -136,10 +138,11 @@ def _iso(ts: float) -> str:
 
 def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.ndarray, y: np.ndarray,
          times: np.ndarray, case_ids: list[str], n_charts: int, share: float,
-         now: datetime) -> tuple[Crossing | None, int]:
+         now: datetime, completeness: dict[str, Any] | None = None) -> tuple[Crossing | None, int]:
     """Feed one stream its new labeled mature cases (in order). Returns (crossing, designs made).
 
-    ``n_charts``: the rule's streams now; ``share``: the rule's yearly share of the model's budget.
+    ``n_charts``: the rule's streams now; ``share``: the rule's yearly share of the model's budget;
+    ``completeness``: how complete the cases' labels were when read, for the evidence.
     """
     recent = _unpack(stream.recent)
     designs = 0
@@ -189,6 +192,7 @@ def feed(stream: ChartStream, rule: AlarmRule, params: ChartParams, *, p: np.nda
             "skipped_late": stream.skipped_late,
             "unlabeled_at_maturity": stream.unlabeled_at_maturity,
             "cases_since_reset": step.state.n_cases,
+            "label_completeness": completeness,
         })
     if step.path is not None and step.path.size:
         k = min(PATH_POINTS, step.path.size)
@@ -272,6 +276,7 @@ def run(session: Session, model: Model, now: datetime) -> ChartReport:
     rules = chart_rules(session, model)
     if not rules:
         return report
+    reading = Reading.of(model, outcome_delay.stored(model))
     split = budget.of_model(session, model)
     shares = {r.id: split.share_of(r.name) or 0.0 for r, _ in rules}
     conn = session.connection()
@@ -288,8 +293,8 @@ def run(session: Session, model: Model, now: datetime) -> ChartReport:
         # "all" stream yet (new rule, new version) reads the whole history.
         after = min(marks) if has_all and marks and None not in marks else None  # type: ignore[type-var]
         _count_late(session, model, version, streams, book, now)
-        for cases in mature_case_windows(conn, model, version, after=after, now=now):
-            _advance_window(session, version, cases, rules, streams, book, shares, now, report)
+        for cases in mature_case_windows(conn, model, version, after=after, now=now, wait=reading.wait):
+            _advance_window(session, version, cases, rules, streams, book, shares, now, report, reading)
     session.flush()
     for crossing in report.crossings:
         report.opened += _open_alarm(session, model, crossing, now) is not None
@@ -306,10 +311,54 @@ def _open_alarm(session: Session, model: Model, crossing: Crossing, now: datetim
                 f"at case {crossing.case_id!r} (S = {crossing.evidence['statistic']:.3f})")
 
 
+@dataclass(frozen=True)
+class Reading:
+    """How a model's charts read cases given its measured outcome delay (docs/methods.md §23).
+
+    ``wait``: how long after maturity (H + L) a case is held back: until it is complete
+    (``outcome_delay.complete_after``). ``reported``: with implicit negatives, the share of
+    events already reported at a case's age, F(age); an unreported event reads as a 0, so
+    under calibration P(y read = 1) = p · F(age), and the chart is fed that risk
+    (reporting-delay adjustment, Lawless 1994). None: the risk is p as it stands.
+    """
+
+    model: Model
+    wait: timedelta
+    complete_after_days: float | None
+    reported: DelayDistribution | None
+
+    @classmethod
+    def of(cls, model: Model, delay: outcome_delay.OutcomeDelay | None) -> Reading:
+        complete = outcome_delay.complete_after(model, delay)
+        events = delay.events if delay is not None else None
+        adjust = bool(model.implicit_negatives) and model.outcome_horizon_days is not None
+        return cls(model, outcome_delay.extra_wait(model, delay),
+                   None if complete is None else complete / timedelta(days=1),
+                   events if adjust else None)
+
+    def risks(self, p: np.ndarray, matured: list[datetime], now: datetime) -> tuple[np.ndarray, np.ndarray]:
+        """(risk the chart is fed, F at each case's age): p · F(now − scored_at), or p and 1."""
+        if self.reported is None:
+            return p, np.ones(p.size)
+        wait = outcome_delay.horizon_and_lag(self.model)
+        assert wait is not None  # adjusting needs a horizon
+        # scored_at lies in the hour ending at matured_at − (H + L): its middle is close enough for F
+        age = (now.timestamp() - _epoch(matured)) / _DAY + wait / timedelta(days=1) + 1.0 / 48.0
+        f = self.reported.at(age)
+        return p * f, f
+
+    def evidence(self, f: np.ndarray) -> dict[str, Any]:
+        return {"complete_after_days": self.complete_after_days,
+                "wait_after_maturity_days": self.wait / timedelta(days=1),
+                "mean_reported_share": float(f.mean()) if f.size else None,
+                "risk_adjusted_for_delay": self.reported is not None}
+
+
 def _advance_window(session: Session, version: str, cases: MatureCases,
                     rules: list[tuple[AlarmRule, ChartParams]],
                     streams: dict[tuple[int, StreamKey], ChartStream], book: SegmentBook,
-                    shares: dict[int, float], now: datetime, report: ChartReport) -> None:
+                    shares: dict[int, float], now: datetime, report: ChartReport,
+                    reading: Reading) -> None:
     """Route one window's cases to their streams (creating new ones) and feed each stream."""
     routes: dict[StreamKey, list[int]] = {}
     for i, tags in enumerate(cases.tags):
@@ -342,10 +391,13 @@ def _advance_window(session: Session, version: str, cases: MatureCases,
         report.cases += len(fresh)
         if not keep:
             continue
+        matured = [cases.matured_at[i] for i in keep]
+        risk, reported = reading.risks(cases.probability[keep], matured, now)
         crossing, designs = feed(
-            stream, rule, params, p=cases.probability[keep], y=cases.label[keep].astype(np.float64),
-            times=_epoch([cases.matured_at[i] for i in keep]), case_ids=[cases.case_id[i] for i in keep],
-            n_charts=per_rule[rule.id], share=shares[rule.id], now=now)
+            stream, rule, params, p=risk, y=cases.label[keep].astype(np.float64),
+            times=_epoch(matured), case_ids=[cases.case_id[i] for i in keep],
+            n_charts=per_rule[rule.id], share=shares[rule.id], now=now,
+            completeness=reading.evidence(reported))
         report.designs += designs
         if crossing is not None:
             report.crossings.append(crossing)

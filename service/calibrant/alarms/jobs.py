@@ -11,8 +11,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import datetime
 
-from calibrant.alarms import budget, charts, feeds, kinds, service, windows
+from calibrant.alarms import budget, charts, feeds, kinds, restatements, service, windows
 from calibrant.clock import Clock
+from calibrant.rollup import outcome_delay
 from calibrant.store import alarm_repo
 from calibrant.store.engine import make_session_factory
 from calibrant.store.tables import Model
@@ -33,7 +34,12 @@ class EvaluationReport:
 
 
 def evaluate_model(session: Session, model: Model, now: datetime, report: EvaluationReport) -> None:
-    """Everything the model's rules have to say at ``now`` (flushes; the caller commits)."""
+    """Everything the model's rules have to say at ``now`` (flushes; the caller commits).
+
+    The outcome delay is measured first (at most hourly): how long the rules wait for a case
+    to be complete depends on it.
+    """
+    outcome_delay.refresh(session.connection(), model, now)
     done = charts.run(session, model, now)
     report.cases += done.cases
     report.designs += done.designs
@@ -52,6 +58,7 @@ def evaluate_model(session: Session, model: Model, now: datetime, report: Evalua
             f = feeds.evaluate_rule(session, model, rule, now, share=split.share_of(rule.name))
             report.opened += f.opened
             report.resolved += f.resolved
+    restatements.restate(session, model, now)
 
 
 def evaluate_all(engine: Engine, now: datetime) -> EvaluationReport:

@@ -246,6 +246,7 @@ def alarm_out(alarm: Alarm) -> dict[str, Any]:
         "crossed_at": alarm.crossed_at, "opened_at": alarm.opened_at, "resolved_at": alarm.resolved_at,
         "resolved_by": alarm.resolved_by, "resolution": alarm.resolution, "evidence": alarm.evidence,
         "budget_share_per_year": (alarm.evidence or {}).get("budget_share_per_year"),
+        "restatements": list(alarm.restatements or []),
     }
 
 

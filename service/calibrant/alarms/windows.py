@@ -22,14 +22,14 @@ with the pooled mix of all values (an uploaded set has no tags and serves all).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta
+from datetime import datetime
 from typing import Any
 
 from calibrant.alarms import kinds, records
 from calibrant.alarms.budget import per_test_level
 from calibrant.alarms.kinds.base import EVALUATIONS_PER_YEAR, Decision, WindowKind
 from calibrant.clock import rfc3339
-from calibrant.rollup import query
+from calibrant.rollup import outcome_delay, query
 from calibrant.rollup.periods import Granularity, Period, periods
 from calibrant.rollup.references import reference_outcome_summary, reference_summary
 from calibrant.stats.result import Estimate
@@ -52,16 +52,18 @@ class WindowReport:
     decisions: list[dict[str, Any]] = field(default_factory=list)  # for backtests
 
 
-def _delay(model: Model) -> timedelta | None:
-    if model.outcome_horizon_days is None:
-        return None
-    return timedelta(days=model.outcome_horizon_days + (model.outcome_lag_days or 0))
+def ready(model: Model, period: Period, now: datetime,
+          delay: outcome_delay.OutcomeDelay | None = None) -> bool:
+    """Closed and complete: its last case's age exceeds ``outcome_delay.complete_after``.
 
-
-def ready(model: Model, period: Period, now: datetime) -> bool:
-    """Closed and mature: its last bucket's end + H + L lies before now (strict, as ``load_days``)."""
-    delay = _delay(model)
-    return period.end <= now if delay is None else period.end + delay < now
+    With a horizon that is H + L (or the p95 delay when late events are common), strict as
+    ``load_days``; without one the measured p95 delay, or the period's end while none is measured.
+    """
+    complete = outcome_delay.complete_after(model, delay)
+    if complete is None:
+        return period.end <= now
+    return period.end + complete < now if model.outcome_horizon_days is not None else (
+        period.end + complete <= now)
 
 
 def segments_of(session: Session, model: Model) -> list[tuple[str, str]]:
@@ -81,6 +83,10 @@ class PeriodInputs:
         self._references = references
         self._metrics: dict[str, Estimate] | None = None
         self._summary: Summary | None = None
+
+    @property
+    def days(self) -> query.DaySlices:
+        return self._days
 
     def summary(self) -> Summary:
         """The period's mature rows of this stream, merged once."""
@@ -153,8 +159,9 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
     references: dict[tuple[str, str], References] = {}
     versions = alarm_repo.versions_of(conn, model.id)
     tests_per_year = EVALUATIONS_PER_YEAR[grain.value]
+    delay = outcome_delay.stored(model)
     for period in spans:
-        if not ready(model, period, now) or alarm_repo.has_dirty_before(conn, model.id, period.end):
+        if not ready(model, period, now, delay) or alarm_repo.has_dirty_before(conn, model.id, period.end):
             break
         boundary = query.maturity_boundary(model, now)
         live: list[tuple[str, tuple[str, str], PeriodInputs]] = []
@@ -170,8 +177,9 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
         level = None if share is None else per_test_level(share, tests_per_year, len(live))
         for version, segment, inputs in live:
             verdict = kind.decide(params, inputs, 0.0 if level is None else level)
+            state = outcome_delay.period_state(model, delay, inputs.days, period.start, period.end, now)
             _apply(session, model, rule, version, segment, period, verdict, (share, level), now,
-                   report, dry_run)
+                   report, dry_run, state)
         report.periods += 1
         if not dry_run:
             rule.evaluated_through = period.end
@@ -180,29 +188,30 @@ def evaluate_rule(session: Session, model: Model, rule: AlarmRule, now: datetime
 
 
 def _evidence(verdict: Decision, period: Period, grain: str,
-              budget: tuple[float | None, float | None]) -> dict[str, Any]:
+              budget: tuple[float | None, float | None], state: outcome_delay.PeriodState) -> dict[str, Any]:
     share, level = budget
     return {
         "statistic": verdict.statistic, "interval": list(verdict.interval) if verdict.interval else None,
         "n": verdict.n, "period_start": rfc3339(period.start), "period_end": rfc3339(period.end),
         "granularity": grain, "detail": verdict.detail, "budget_share_per_year": share, "level": level,
+        "label_completeness": state.label_completeness,
     }
 
 
 def _apply(session: Session, model: Model, rule: AlarmRule, version: str, segment: tuple[str, str],
            period: Period, verdict: Decision, budget: tuple[float | None, float | None], now: datetime,
-           report: WindowReport, dry_run: bool) -> None:
+           report: WindowReport, dry_run: bool, state: outcome_delay.PeriodState) -> None:
     grain = rule.params.get("granularity", "week")
     if dry_run:
         if verdict.crossed:
             report.decisions.append({"period_start": period.start, "period_end": period.end,
                                      "version": version, "segment": segment, "summary": verdict.summary,
-                                     "evidence": _evidence(verdict, period, grain, budget)})
+                                     "evidence": _evidence(verdict, period, grain, budget, state)})
         return
     current = records.open_alarm_of(session, rule, version, segment)
     if verdict.crossed and current is None:
         records.open_alarm(session, model, rule, version=version, segment=segment, crossed_at=period.end,
-                           evidence=_evidence(verdict, period, grain, budget),
+                           evidence=_evidence(verdict, period, grain, budget, state),
                            summary=f"{rule.name}: {verdict.summary}", now=now)
         report.opened += 1
     elif verdict.crossed is False and current is not None:

@@ -108,6 +108,19 @@ class AlarmResolution(BaseModel):
     reason: str
 
 
+class AlarmRestatement(BaseModel):
+    """The alarm's period judged again after later outcomes changed it; the evidence stays as raised."""
+
+    at: Instant = Field(description="When the change was seen.")
+    checked_at: Instant = Field(description="When the period was last looked at again.")
+    reason: str
+    statistic: float | None = Field(description="The statistic on the period's data now.")
+    n: int = Field(description="Cases it rests on now.")
+    label_completeness: float | None = Field(description="The period's label completeness now.")
+    still_crosses: bool | None = Field(description="Whether the period would still raise the alarm; "
+                                                   "null: too little data to judge.")
+
+
 class AlarmOut(BaseModel):
     id: int
     rule: str
@@ -125,6 +138,11 @@ class AlarmOut(BaseModel):
     budget_share_per_year: float | None = Field(
         description="The raising rule's yearly share of the model's false-alarm budget when it crossed; "
                     "null: a rule outside the budget, or an alarm raised before budgets existed."
+    )
+    restatements: list[AlarmRestatement] = Field(
+        default_factory=list,
+        description="Window alarms: each time outcomes reported later changed the alarm's period, "
+                    "oldest first (empty: unchanged). Chart alarms are never restated.",
     )
 
 

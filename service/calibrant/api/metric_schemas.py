@@ -60,6 +60,19 @@ class _PeriodBase(SparseModel):
     window_start: Instant | None = Field(
         None, description="Start of the trailing window the values describe; present only with `window`."
     )
+    label_completeness: float | None = Field(
+        None,
+        description="Estimated share of the period's eventual outcomes already reported: the measured "
+                    "delay distribution F at each case's age, averaged over the period's cases "
+                    "(docs/methods.md §23). Not label_coverage, which counts labels over predictions. "
+                    "Null when no delay is measured yet or the period has no predictions.",
+    )
+    provisional: bool = Field(
+        False,
+        description="True while label metrics may still move: completeness below 0.95, predictions "
+                    "still inside horizon + lag, or (without a horizon) no delay measured yet.",
+    )
+    provisional_reason: str | None = Field(None, description="Why the period is provisional; null if not.")
 
 
 def _description(key: str) -> str:

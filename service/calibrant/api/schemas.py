@@ -38,7 +38,13 @@ class OutcomeIn(BaseModel):
 
     id: str = Field(min_length=1, max_length=200)
     label: Literal[0, 1] | bool
-    observed_at: datetime = Field(description="RFC 3339 with offset.")
+    observed_at: datetime = Field(description="When the outcome was reported: RFC 3339 with offset.")
+    occurred_at: datetime | None = Field(
+        None,
+        description="When the event happened, if known (RFC 3339 with offset, not after observed_at). "
+                    "With a horizon, an event that happened after it counts as 0; one that happened "
+                    "inside it but was reported after horizon + lag is a late event and counts as 1.",
+    )
 
 
 class OutcomeBatchIn(BaseModel):
@@ -85,6 +91,48 @@ class UploadedReferenceOut(BaseModel):
 ReferenceOut = Annotated[TrafficReferenceOut | UploadedReferenceOut, Field(discriminator="kind")]
 
 
+class DelayQuantiles(BaseModel):
+    p50: float
+    p90: float
+    p95: float
+    p99: float
+
+
+class DelayWeek(BaseModel):
+    week_start: Instant = Field(description="Monday 00:00 UTC of the week the cases were scored in.")
+    reported: int = Field(description="Cases of the week with an outcome so far.")
+    events: int = Field(description="Of those, events (label 1 that happened inside the horizon).")
+    late_events: int = Field(description="Events reported after horizon + lag.")
+    median_days_so_far: float | None = Field(
+        description="Median delay of the week's reports so far (short for recent weeks: later "
+                    "reports are still to come); null when none."
+    )
+
+
+class OutcomeDelayOut(BaseModel):
+    """The delay from scoring to the report of an outcome, measured from the model's own reports."""
+
+    measured_at: Instant
+    reports_measured: int = Field(
+        description="Reports it was measured from (cases scored in the last 180 days; with implicit "
+                    "negatives events only, since non-events never report)."
+    )
+    quantiles_days: DelayQuantiles = Field(
+        description="Quantiles of the delay in days, by the product-limit estimator for right-"
+                    "truncated data (docs/methods.md §23), so cases still waiting do not shorten it."
+    )
+    late_event_share: float | None = Field(
+        description="Estimated share of events reported after horizon + lag; null without a horizon."
+    )
+    late_events: int = Field(description="Events seen reported after horizon + lag (last 180 days).")
+    complete_after_days: float | None = Field(
+        description="Age at which the rules treat a case as complete: horizon + lag, or the p95 delay "
+                    "when it is longer and the late-event share exceeds 2 %; without a horizon the "
+                    "p95 delay."
+    )
+    by_week: list[DelayWeek] = Field(description="The last 12 weeks of scoring, oldest first.")
+
+
 class ModelOut(BaseModel):
     name: str
     description: str
@@ -99,6 +147,10 @@ class ModelOut(BaseModel):
     created_at: Instant
     updated_at: Instant
     counts: ModelCountsOut | None = None
+    outcome_delay: OutcomeDelayOut | None = Field(
+        None, description="The measured outcome delay; null until an outcome was reported and the "
+                          "alarms job has measured it (at most hourly)."
+    )
 
 
 class ModelList(BaseModel):
@@ -117,6 +169,7 @@ class CasePrediction(BaseModel):
 class CaseOutcome(BaseModel):
     label: int
     observed_at: Instant
+    occurred_at: Instant | None = None
     received_at: Instant
     revision: int
 

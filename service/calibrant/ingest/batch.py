@@ -27,7 +27,7 @@ MAX_TAG_VALUE_LENGTH = 128
 DEFAULT_VERSION = "default"
 
 _PREDICTION_FIELDS = frozenset({"id", "probability", "scored_at", "version", "tags"})
-_OUTCOME_FIELDS = frozenset({"id", "label", "observed_at"})
+_OUTCOME_FIELDS = frozenset({"id", "label", "observed_at", "occurred_at"})
 
 
 def _load_items(body: bytes, member: str, max_items: int) -> list[Any]:
@@ -181,6 +181,7 @@ def parse_outcomes(body: bytes, max_items: int, window: InstantWindow) -> Outcom
     case_ids: list[str] = []
     labels: list[int] = []
     times: list[datetime] = []
+    occurred: list[datetime | None] = []
     seen: dict[str, int] = {}
     for index, item in enumerate(items):
         if not isinstance(item, dict):
@@ -200,15 +201,33 @@ def parse_outcomes(body: bytes, max_items: int, window: InstantWindow) -> Outcom
         when = parse_instant_within(item.get("observed_at"), window)
         if isinstance(when, str):
             errors.append(FieldError(index, "observed_at", when))
+        happened = _check_occurred(item.get("occurred_at"), when, window, index, errors)
         first = seen.setdefault(case_id, index)
         if first != index:
             errors.append(FieldError(index, "id", f"repeats item {first} (same id in one batch)"))
         case_ids.append(case_id)
         labels.append(int(label))
         times.append(when)  # type: ignore[arg-type]
+        occurred.append(happened)
     if errors:
         raise InvalidInput(f"{_count_items(errors)} item(s) are invalid; nothing was stored", errors)
-    return OutcomeColumns(case_ids, labels, times)
+    return OutcomeColumns(case_ids, labels, times, occurred)
+
+
+def _check_occurred(value: object, observed: datetime | str, window: InstantWindow, index: int,
+                    errors: list[FieldError]) -> datetime | None:
+    """``occurred_at`` is optional; when sent, an RFC 3339 instant in the accepted ``window``
+    (like every stored event time) and no later than ``observed_at`` (an event is reported after
+    it happens)."""
+    if value is None:
+        return None
+    when = parse_instant_within(value, window)
+    if isinstance(when, str):
+        errors.append(FieldError(index, "occurred_at", when))
+        return None
+    if isinstance(observed, datetime) and when > observed:
+        errors.append(FieldError(index, "occurred_at", "must not be after observed_at"))
+    return when
 
 
 def _count_items(errors: list[FieldError]) -> int:

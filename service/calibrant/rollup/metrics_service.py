@@ -10,7 +10,7 @@ from typing import Any
 
 from calibrant.errors import FieldError, InvalidInput, invalid
 from calibrant.models.service import require
-from calibrant.rollup import query
+from calibrant.rollup import outcome_delay, query
 from calibrant.rollup.periods import Granularity, period_count, periods
 from calibrant.rollup.references import reference_summary
 from calibrant.stats.reliability import ReliabilityDiagram
@@ -141,12 +141,16 @@ def metrics(
         conn, model, first, spans[-1].end, segment=sel.segment, version=sel.version, boundary=boundary
     )
     reference = reference_summary(conn, model, sel.segment)
+    delay = outcome_delay.stored(model)
     body = []
     for span in spans:
         entry: dict[str, Any] = {"start": span.start, "end": span.end}
         if span.window_start is not None:
             entry["window_start"] = span.window_start
         entry.update(serialise(query.period_metrics(span, days, model, reference, keys)))
+        state = outcome_delay.period_state(model, delay, days, span.data_start, span.end, now)
+        entry.update(label_completeness=state.label_completeness, provisional=state.provisional,
+                     provisional_reason=state.provisional_reason)
         body.append(entry)
     return {
         "model": model.name,

@@ -140,6 +140,7 @@ def _read_buckets(engine: Engine, keys: list[BucketKey], chunk_rows: int) -> lis
     in the order the buckets are read, as if they were read one by one.
     """
     books: dict[int, SegmentBook] = {}
+    horizons: dict[int, int | None] = {}
     out = []
     with engine.begin() as conn:
         for key in keys:
@@ -148,7 +149,9 @@ def _read_buckets(engine: Engine, keys: list[BucketKey], chunk_rows: int) -> lis
                 book = SegmentBook(rollup_repo.segment_keys(conn, key.model_id),
                                    rollup_repo.segment_values(conn, key.model_id))
                 books[key.model_id] = book
-            summaries, n_rows = summarise_bucket(rollup_repo.bucket_rows(conn, key, chunk_rows), book)
+                horizons[key.model_id] = rollup_repo.horizon_days(conn, key.model_id)
+            rows = rollup_repo.bucket_rows(conn, key, chunk_rows, horizons[key.model_id])
+            summaries, n_rows = summarise_bucket(rows, book)
             out.append(_Computed(book, summaries, n_rows))
     return out
 

@@ -298,6 +298,10 @@ class Summary:
         n = np.bincount(self._cells % _N_CLASSES, weights=self._fields[:, 0], minlength=3)
         return {"negative": float(n[0]), "positive": float(n[1]), "unlabeled": float(n[2])}
 
+    def field_total(self, field: str) -> float:
+        """Σ of one field over every class and bin (``field_total("s1")`` = Σ p of all rows)."""
+        return float(self._fields[:, F[field]].sum())
+
     def all_rows(self) -> tuple[np.ndarray, np.ndarray]:
         """(bins, fields) over every class, for statistics that need no label."""
         dense = self.class_dense().sum(axis=1)

@@ -81,6 +81,24 @@ def list_alarms(session: Session, model_id: int, *, state: str | None, rule: str
     return list(session.scalars(query.order_by(Alarm.id.desc()).limit(limit)))
 
 
+def alarms_opened_since(session: Session, model_id: int, since: datetime) -> list[Alarm]:
+    return list(session.scalars(select(Alarm).where(Alarm.model_id == model_id, Alarm.opened_at >= since)
+                                .order_by(Alarm.id)))
+
+
+def summaries_recomputed_since(conn: Connection, model_id: int, version: str | None,
+                               segment: tuple[str, str], start: datetime, end: datetime,
+                               since: datetime) -> bool:
+    """Whether any hour of [start, end) of the stream was summarised again after ``since``."""
+    query = select(BucketSummary.hour).where(
+        BucketSummary.model_id == model_id, BucketSummary.segment_key == segment[0],
+        BucketSummary.segment_value == segment[1], BucketSummary.hour >= start, BucketSummary.hour < end,
+        BucketSummary.computed_at > since)
+    if version is not None:
+        query = query.where(BucketSummary.version == version)
+    return conn.execute(query.limit(1)).first() is not None
+
+
 # ----------------------------------------------------------------------------- versions and feeds
 def versions_of(conn: Connection, model_id: int) -> list[str]:
     rows = conn.execute(select(Prediction.version).where(Prediction.model_id == model_id).distinct())

@@ -93,6 +93,9 @@ class Alarm(Base):
     resolved_at: Mapped[datetime | None] = mapped_column(nullable=True)
     resolved_by: Mapped[str | None] = mapped_column(String(64), nullable=True)
     resolution: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
+    # A window alarm's period restated by outcomes that came after it was raised, oldest first
+    # (alarms.restatements); the evidence itself is never rewritten.
+    restatements: Mapped[list[dict[str, Any]] | None] = mapped_column(JSON, nullable=True)
 
     __table_args__ = (
         Index(None, "open_key", unique=True),

@@ -23,6 +23,8 @@ class OutcomeColumns:
     case_id: list[str]
     label: list[int]
     observed_at: list[datetime]
+    # When the event happened, if the sender knows (None: not sent). Not after observed_at.
+    occurred_at: list[datetime | None]
 
     def __len__(self) -> int:
         return len(self.case_id)

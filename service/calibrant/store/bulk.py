@@ -41,6 +41,7 @@ OUTCOME_STAGING: StagingColumns = (
     ("case_id", 'text COLLATE "C"', "TEXT"),
     ("label", "int2", "INTEGER"),
     ("observed_at", "timestamptz", "TEXT"),
+    ("occurred_at", "timestamptz", "TEXT"),
 )
 
 
@@ -147,5 +148,6 @@ def append_if_all_new(conn: Connection, table: str, columns: StagingColumns, row
 def _with_sqlite_times(row: tuple, positions: list[int]) -> tuple:
     out = list(row)
     for i in positions:
-        out[i] = sqlite_instant(out[i])
+        if out[i] is not None:  # an optional time (an outcome's occurred_at) stays NULL
+            out[i] = sqlite_instant(out[i])
     return tuple(out)

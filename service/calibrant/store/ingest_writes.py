@@ -149,7 +149,8 @@ def upsert_outcomes(
 ) -> OutcomeWrite:
     lock_model_for_outcomes(conn, model_id)
     rows = list(
-        zip(range(len(batch)), batch.case_id, batch.label, batch.observed_at, strict=True)
+        zip(range(len(batch)), batch.case_id, batch.label, batch.observed_at, batch.occurred_at,
+            strict=True)
     )
     stage(conn, "staging_outcomes", OUTCOME_STAGING, rows)
     existing = conn.execute(
@@ -175,6 +176,7 @@ def upsert_outcomes(
                 "case_id": batch.case_id[idx],
                 "label": batch.label[idx],
                 "observed_at": db_instant(conn, batch.observed_at[idx]),
+                "occurred_at": _optional_instant(conn, batch.occurred_at[idx]),
                 "received_at": received,
                 "revision": current[idx][1] + 1,
             })
@@ -183,8 +185,10 @@ def upsert_outcomes(
         # History first, while outcomes still hold the previous labels: one row per new or
         # changed label, set-based from staging (executemany cost ~20 µs a row on PostgreSQL).
         conn.execute(text(
-            "INSERT INTO outcome_revisions (model_id, case_id, revision, label, observed_at, received_at) "
-            "SELECT :model_id, s.case_id, COALESCE(o.revision, 0) + 1, s.label, s.observed_at, :received_at "
+            "INSERT INTO outcome_revisions "
+            "(model_id, case_id, revision, label, observed_at, occurred_at, received_at) "
+            "SELECT :model_id, s.case_id, COALESCE(o.revision, 0) + 1, s.label, s.observed_at, "
+            "s.occurred_at, :received_at "
             "FROM staging_outcomes s "
             "LEFT JOIN outcomes o ON o.model_id = :model_id AND o.case_id = s.case_id "
             "WHERE o.case_id IS NULL OR o.label <> s.label ORDER BY s.case_id"
@@ -193,7 +197,7 @@ def upsert_outcomes(
         conn.execute(
             text(
                 "UPDATE outcomes SET label = :label, observed_at = :observed_at, "
-                "received_at = :received_at, revision = :revision "
+                "occurred_at = :occurred_at, received_at = :received_at, revision = :revision "
                 "WHERE model_id = :model_id AND case_id = :case_id"
             ),
             corrections,
@@ -203,8 +207,9 @@ def upsert_outcomes(
         # is possible: this model's outcome batches are serialised and ids are unique per batch.
         conn.execute(text(
             "INSERT INTO outcomes "
-            "(model_id, case_id, label, observed_at, first_observed_at, received_at, revision) "
-            "SELECT :model_id, s.case_id, s.label, s.observed_at, s.observed_at, :received_at, 1 "
+            "(model_id, case_id, label, observed_at, first_observed_at, occurred_at, received_at, revision) "
+            "SELECT :model_id, s.case_id, s.label, s.observed_at, s.observed_at, s.occurred_at, "
+            ":received_at, 1 "
             "FROM staging_outcomes s WHERE NOT EXISTS "
             "(SELECT 1 FROM outcomes o WHERE o.model_id = :model_id AND o.case_id = s.case_id) "
             "ORDER BY s.case_id"
@@ -218,6 +223,10 @@ def upsert_outcomes(
         corrected=len(corrections),
         changed_case_ids=changed,
     )
+
+
+def _optional_instant(conn: Connection, value: datetime | None) -> object:
+    return None if value is None else db_instant(conn, value)
 
 
 def _mark_outcome_buckets(conn: Connection, model_id: int, changed: set[str], now: datetime) -> None:

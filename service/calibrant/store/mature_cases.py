@@ -20,12 +20,14 @@ from __future__ import annotations
 from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
+from typing import Any
 
 import numpy as np
 import orjson
 from sqlalchemy import ColumnElement, Connection, and_, func, select
 from sqlalchemy.orm import QueryableAttribute
 
+from calibrant.store.event_label import counted_label
 from calibrant.store.tables import Model, Outcome, Prediction
 
 HOUR = timedelta(hours=1)
@@ -76,8 +78,10 @@ def latest_maturity(model: Model, now: datetime) -> datetime:
     return now if _delay(model) is not None else now - timedelta(days=model.outcome_lag_days or 0)
 
 
-_COLUMNS = (Prediction.case_id, Prediction.probability, Prediction.scored_at, Prediction.tags,
-            Outcome.label, Outcome.first_observed_at)
+def _columns(conn: Connection, model: Model) -> tuple[Any, ...]:
+    return (Prediction.case_id, Prediction.probability, Prediction.scored_at, Prediction.tags,
+            counted_label(conn, model.outcome_horizon_days), Outcome.first_observed_at)
+
 _JOIN = and_(Outcome.model_id == Prediction.model_id, Outcome.case_id == Prediction.case_id)
 
 
@@ -88,7 +92,8 @@ def mature_cases(conn: Connection, model: Model, version: str, *, after: datetim
     ``until`` is at most :func:`latest_maturity` of the caller's now. The caller drops
     the cases at or before its watermark.
     """
-    base = select(*_COLUMNS).where(Prediction.model_id == model.id, Prediction.version == version)
+    base = select(*_columns(conn, model)).where(Prediction.model_id == model.id,
+                                                Prediction.version == version)
     delay = _delay(model)
     if delay is not None:
         # matured_at = floor_hour(scored_at) + 1h + delay ≤ until  ⇔  scored_at < floor_hour(until − delay)
@@ -120,13 +125,16 @@ def mature_cases(conn: Connection, model: Model, version: str, *, after: datetim
 
 
 def mature_case_windows(conn: Connection, model: Model, version: str, *, after: datetime | None,
-                        now: datetime, window: timedelta = WINDOW) -> Iterator[MatureCases]:
-    """:func:`mature_cases` from ``after`` (or the first case) to now, one window at a time.
+                        now: datetime, window: timedelta = WINDOW,
+                        wait: timedelta = timedelta(0)) -> Iterator[MatureCases]:
+    """:func:`mature_cases` from ``after`` (or the first case) to now − ``wait``, one window at a time.
 
-    Concatenated, the windows are exactly ``mature_cases(after, latest_maturity(now))``:
-    each window (lo, lo + window] drops what the previous one already returned.
+    Concatenated, the windows are exactly ``mature_cases(after, latest_maturity(now) − wait)``:
+    each window (lo, lo + window] drops what the previous one already returned. ``wait``
+    holds cases back beyond their maturity (late outcomes, rollup.outcome_delay); the
+    order and the watermarks stay in maturity time, so a changed wait never re-reads a case.
     """
-    end = latest_maturity(model, now)
+    end = latest_maturity(model, now) - wait
     lo = after
     if lo is None:  # the whole history: from the version's first possible maturity
         lo = _next_maturity_bound(conn, model, version, None)

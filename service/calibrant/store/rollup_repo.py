@@ -11,6 +11,7 @@ import numpy as np
 from sqlalchemy import Connection, delete, func, insert, select
 
 from calibrant.store.dirty import BucketKey, DayKey, Key
+from calibrant.store.event_label import counted_label
 from calibrant.store.rollup_tables import (
     BucketSummary,
     DaySummary,
@@ -36,10 +37,14 @@ class RawChunk:
     tags: list[str | None]  # canonical JSON per row
 
 
-def bucket_rows(conn: Connection, key: BucketKey, chunk_rows: int) -> Iterator[RawChunk]:
-    """The bucket's predictions joined with their outcomes, ``chunk_rows`` at a time."""
+def bucket_rows(conn: Connection, key: BucketKey, chunk_rows: int,
+                horizon_days: int | None = None) -> Iterator[RawChunk]:
+    """The bucket's predictions joined with their outcomes, ``chunk_rows`` at a time.
+
+    With a horizon, an event that happened after it is read as a 0 (``event_label``).
+    """
     query = (
-        select(Prediction.probability, Outcome.label, Prediction.tags)
+        select(Prediction.probability, counted_label(conn, horizon_days), Prediction.tags)
         .select_from(Prediction)
         .outerjoin(
             Outcome,
@@ -91,6 +96,10 @@ def replace_summaries(
                 for (seg_key, seg_value), (n, payload) in sorted(summaries.items())
             ],
         )
+
+
+def horizon_days(conn: Connection, model_id: int) -> int | None:
+    return conn.execute(select(Model.outcome_horizon_days).where(Model.id == model_id)).scalar()
 
 
 def segment_keys(conn: Connection, model_id: int) -> list[str]:

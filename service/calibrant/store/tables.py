@@ -56,6 +56,9 @@ class Model(Base):
     reference: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
     # One false-alarm budget for all of the model's rules (alarms.budget).
     false_alarms_per_year: Mapped[float] = mapped_column(Double, default=1.0)
+    # The measured outcome delay (rollup.outcome_delay.DelayEstimate as JSON), rewritten by the
+    # alarms job; None until the model has reported outcomes.
+    outcome_delay: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
     # Bumped whenever a setting that changes summaries changes (keys, horizon,
     # lag, implicit negatives), so the rollup knows to rebuild.
     settings_generation: Mapped[int] = mapped_column(Integer, default=1)
@@ -95,6 +98,9 @@ class Outcome(Base):
     # observed_at of the first label, kept through corrections: without an outcome horizon a
     # case matures when its first outcome was observed, so a correction never moves it.
     first_observed_at: Mapped[datetime]
+    # When the event happened, if the sender said (observed_at is when it was reported). With a
+    # horizon, an event that happened after it counts as a 0 (rollup.outcome_delay).
+    occurred_at: Mapped[datetime | None] = mapped_column(nullable=True)
     received_at: Mapped[datetime]
     revision: Mapped[int] = mapped_column(Integer, default=1)  # 1 = first label; +1 per correction
 
@@ -113,6 +119,7 @@ class OutcomeRevision(Base):
     revision: Mapped[int] = mapped_column(Integer)
     label: Mapped[int] = mapped_column(SmallInteger)
     observed_at: Mapped[datetime]
+    occurred_at: Mapped[datetime | None] = mapped_column(nullable=True)
     received_at: Mapped[datetime]
 
     __table_args__ = (Index(None, "model_id", "case_id", "revision", unique=True),)

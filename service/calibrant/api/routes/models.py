@@ -15,10 +15,12 @@ from calibrant.api.schemas import (
     ModelCountsOut,
     ModelList,
     ModelOut,
+    OutcomeDelayOut,
     request_body,
 )
 from calibrant.models import service
 from calibrant.models.settings import ModelSettingsPatch
+from calibrant.rollup import outcome_delay
 from calibrant.store import models_repo
 from calibrant.store.tables import Model, Outcome, OutcomeRevision
 from calibrant.store.unit import Session
@@ -37,7 +39,24 @@ def _model_out(model: Model, counts: models_repo.ModelCounts | None = None) -> M
         )
         if counts
         else None,
+        outcome_delay=_delay_out(model),
     )
+
+
+def _delay_out(model: Model) -> OutcomeDelayOut | None:
+    delay = outcome_delay.stored(model)
+    if delay is None:
+        return None
+    complete = outcome_delay.complete_after(model, delay)
+    return OutcomeDelayOut.model_validate({
+        "measured_at": delay.measured_at,
+        "reports_measured": delay.reports.n,
+        "quantiles_days": delay.quantiles_days(),
+        "late_event_share": delay.late_event_share,
+        "late_events": delay.late_events,
+        "complete_after_days": None if complete is None else round(complete.total_seconds() / 86400, 4),
+        "by_week": delay.by_week,
+    })
 
 
 @router.get("", response_model=ModelList, summary="All models")
@@ -107,5 +126,6 @@ async def get_case(model: str, case_id: str, runtime: RuntimeDep, _caller: Reade
 
 def _outcome(row: Outcome | OutcomeRevision) -> CaseOutcome:
     return CaseOutcome(
-        label=row.label, observed_at=row.observed_at, received_at=row.received_at, revision=row.revision
+        label=row.label, observed_at=row.observed_at, occurred_at=row.occurred_at,
+        received_at=row.received_at, revision=row.revision
     )
