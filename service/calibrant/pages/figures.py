@@ -109,17 +109,25 @@ def series(periods: list[dict[str, Any]], key: str, label: str,
 
 
 def coverage(periods: list[dict[str, Any]]) -> Figure:
-    """Share of cases with a label per period (``label_completeness`` when given, else label coverage)."""
+    """Labels per period: the labeled share of predictions (bars) and, where the outcome delay is
+    measured, the estimated share of the period's eventual outcomes already reported (line)."""
     xs = [plot_time(p["start"]) for p in periods]
-    values = [p.get("label_completeness", p.get("label_coverage")) for p in periods]
+    data: list[dict[str, Any]] = [{
+        "type": "bar", "name": "labeled share", "x": xs, "y": [p.get("label_coverage") for p in periods],
+        "marker": {"color": [PROVISIONAL if is_provisional(p) else SECOND for p in periods]},
+        "hovertemplate": "%{x}<br>%{y:.1%}<extra>labeled share</extra>",
+    }]
+    completeness = [p.get("label_completeness") for p in periods]
+    if any(value is not None for value in completeness):
+        data.append({
+            "type": "scatter", "mode": "lines+markers", "name": "label completeness", "x": xs,
+            "y": completeness, "line": {"color": INK},
+            "hovertemplate": "%{x}<br>%{y:.1%}<extra>label completeness</extra>",
+        })
     return {
-        "data": [{
-            "type": "bar", "name": "labeled share", "x": xs, "y": values,
-            "marker": {"color": [PROVISIONAL if is_provisional(p) else SECOND for p in periods]},
-            "hovertemplate": "%{x}<br>%{y:.1%}<extra>labeled share</extra>",
-        }],
-        "layout": _layout("labeled share", yaxis={"range": [0, 1], "tickformat": ".0%", "gridcolor": GRID},
-                          showlegend=False),
+        "data": data,
+        "layout": _layout("labels", yaxis={"range": [0, 1.05], "tickformat": ".0%", "gridcolor": GRID},
+                          showlegend=len(data) > 1),
     }
 
 

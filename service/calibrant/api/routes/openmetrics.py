@@ -46,6 +46,8 @@ PERIOD_FIGURES: tuple[tuple[str, str, str, str], ...] = (
      "Observed over expected positives (O/E); 1 is ideal"),
     ("label_coverage", "calibrant_label_coverage", "ratio",
      "Labeled share of the period's predictions (n_labeled / n_predictions)"),
+    ("label_completeness", "calibrant_label_completeness", "ratio",
+     "Estimated share of the period's eventual outcomes already reported (measured outcome delay)"),
     ("n_predictions", "calibrant_period_predictions", "",
      "Predictions scored in the period"),
     ("n_labeled", "calibrant_period_labeled_cases", "",
