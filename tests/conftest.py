@@ -103,11 +103,12 @@ def _truncate_all(engine: sa.Engine) -> None:
         conn.exec_driver_sql(f"TRUNCATE {names} RESTART IDENTITY CASCADE")
 
 
-@pytest.fixture(params=["sqlite", "postgresql"])
-def db(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[Database]:
+def open_database(request: pytest.FixtureRequest, directory: Path) -> Database:
+    """A migrated, empty database of the dialect ``request.param``: SQLite copied from the
+    session's template into ``directory``, PostgreSQL in this run's schema, emptied."""
     if request.param == "sqlite":
         template: Path = request.getfixturevalue("sqlite_template")
-        path = tmp_path / "calibrant.db"
+        path = directory / "calibrant.db"
         shutil.copy(template, path)
         url = f"sqlite:///{path}"
     else:
@@ -115,8 +116,14 @@ def db(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[Database]:
     engine = make_engine(Settings(database_url=url))
     if request.param == "postgresql":
         _truncate_all(engine)
-    yield Database(request.param, url, engine)
-    engine.dispose()
+    return Database(request.param, url, engine)
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def db(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[Database]:
+    database = open_database(request, tmp_path)
+    yield database
+    database.engine.dispose()
 
 
 # Tests replay streams posted ahead of a FixedClock that they then advance (outcomes before the

@@ -6,7 +6,6 @@ model list, and a case look-up of the seeded model are what they were before it.
 
 from __future__ import annotations
 
-import shutil
 from collections.abc import Iterator
 from datetime import timedelta
 from typing import Any
@@ -15,11 +14,9 @@ import pytest
 from fastapi.testclient import TestClient
 
 from calibrant.clock import FixedClock
-from calibrant.config import Settings
-from calibrant.store.engine import make_engine
 from calibrant.store.schema import Base
 from tests.api.payloads import assert_problem
-from tests.conftest import Database, _truncate_all, make_client
+from tests.conftest import Database, make_client, open_database
 from tests.input.catalogue import CASES, FRESH, NOW, SEEDED, BadInput
 
 
@@ -56,21 +53,12 @@ def seeded(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFact
            ) -> Iterator[tuple[Database, TestClient]]:
     """One seeded database per dialect for the whole catalogue: a case that wrote anything
     fails its own comparison, so sharing the state hides nothing."""
-    if request.param == "sqlite":
-        path = tmp_path_factory.mktemp("catalogue") / "calibrant.db"
-        shutil.copy(request.getfixturevalue("sqlite_template"), path)
-        url = f"sqlite:///{path}"
-    else:
-        url = request.getfixturevalue("postgres_schema_url")
-    engine = make_engine(Settings(database_url=url))
-    if request.param == "postgresql":
-        _truncate_all(engine)
-    database = Database(request.param, url, engine)
+    database = open_database(request, tmp_path_factory.mktemp("catalogue"))
     with make_client(database, clock=FixedClock(NOW), webhook_allow_private=True,
                      webhook_sender="log", future_tolerance_hours=24) as client:  # the default
         seed(client)
         yield database, client
-    engine.dispose()
+    database.engine.dispose()
 
 
 def test_the_catalogue_holds_at_least_forty_cases() -> None:
