@@ -27,7 +27,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 
 from calibrant.rollup.periods import Period
-from calibrant.rollup.query import DaySlices, period_metrics
+from calibrant.rollup.query import DaySlices, apply_floors, period_metrics
 from calibrant.stats import summary_binned, summary_metrics
 from calibrant.stats.result import Estimate
 from calibrant.stats.summary import LabeledBins, Summary
@@ -99,8 +99,12 @@ class SimPeriod:
         if key not in self._fast:
             if key == "psi":  # every row of the period is mature, so "everything" is the summary
                 self._fast[key] = psi(self.summary, self._refs.scores)
-            else:
-                self._fast[key] = _LABEL_KEYS[key](self.summary.labeled(self._model.implicit_negatives))
+            else:  # the registry's floors apply here as in period_metrics
+                fast = {key: _LABEL_KEYS[key](self.summary.labeled(self._model.implicit_negatives))}
+                counts = self.summary.counts()
+                unlabeled = counts["unlabeled"] if self._model.implicit_negatives else 0.0
+                apply_floors(fast, counts["positive"], counts["negative"] + unlabeled)
+                self._fast[key] = fast[key]
         return self._fast[key]
 
     def all_metrics(self) -> dict[str, Estimate]:
