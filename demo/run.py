@@ -134,6 +134,7 @@ def _where_to_look(workdir: Path, traffic: scenario.Traffic, alarms: list[dict],
     say("")
     say("Where to look: serve the demo's database, then ask it (another terminal):")
     say(f"  CALIBRANT_DATABASE_URL=sqlite:///{workdir / 'calibrant.db'} make run")
+    say(f"  pages, in a browser: http://127.0.0.1:8000/models/{scenario.MODEL}?{span}")
     for depot in scenario.DEPOTS:
         tag = quote(f"{scenario.SEGMENT_KEY}:{depot.name}")
         say(f"  weekly metrics, {depot.name}: curl -s '{m}/metrics?{span}&granularity=week&tag={tag}'")
