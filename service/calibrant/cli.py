@@ -11,7 +11,9 @@ import logging.config
 import os
 import sys
 import time
+import zoneinfo
 from collections.abc import Sequence
+from pathlib import Path
 from typing import Any
 
 import uvicorn
@@ -23,6 +25,8 @@ from calibrant.app import create_app
 from calibrant.clock import SystemClock
 from calibrant.config import Settings
 from calibrant.errors import CalibrantError, InvalidInput, field_errors
+from calibrant.files.importing import import_file, reject_path
+from calibrant.files.reading import FIELDS, FileProblem, Layout
 from calibrant.jobs import JobContext, run_all
 from calibrant.logs import FORMATS, log_config
 from calibrant.reports import build as report_build
@@ -234,6 +238,48 @@ def cmd_report(args: argparse.Namespace) -> int:
     return 0
 
 
+def _column_map(pairs: list[str] | None, kind: str) -> dict[str, str]:
+    mapping: dict[str, str] = {}
+    for pair in pairs or []:
+        name, sep, column = pair.partition("=")
+        if not sep or name not in FIELDS[kind] or not column:
+            raise SystemExit(f"calibrant: --column takes FIELD=COLUMN with FIELD one of "
+                             f"{', '.join(FIELDS[kind])}; got {pair!r}")
+        mapping[name] = column
+    return mapping
+
+
+def cmd_import(args: argparse.Namespace) -> int:
+    """Import a CSV or Parquet file through the ingest service (not the web server)."""
+    settings = _settings()
+    if args.time_zone:
+        try:
+            zoneinfo.ZoneInfo(args.time_zone)
+        except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+            print(f"calibrant: --time-zone: unknown time zone {args.time_zone!r}", file=sys.stderr)
+            return 2
+    layout = Layout(args.kind, _column_map(args.column, args.kind), args.time_zone)
+    engine = make_engine(settings)
+    try:
+        counts = import_file(Path(args.file), layout, model=args.model, sessions=make_session_factory(engine),
+                             settings=settings, clock=SystemClock(), chunk_rows=args.chunk_rows,
+                             progress=not args.quiet)
+    except (FileProblem, FileNotFoundError) as exc:
+        print(f"calibrant: {exc}", file=sys.stderr)
+        return 2
+    except InvalidInput as exc:
+        print(f"calibrant: {exc.detail}: " + "; ".join(f"{e.field}: {e.message}" for e in exc.errors),
+              file=sys.stderr)
+        return 2
+    finally:
+        engine.dispose()
+    shown = ", ".join(f"{k} {v}" for k, v in counts.as_dict().items())
+    print(f"{args.kind} of {args.model} from {args.file}: {shown}")
+    if counts.rejected:
+        print(f"refused rows, with their line and reason: {reject_path(Path(args.file))}", file=sys.stderr)
+    return 1 if counts.rejected else 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="calibrant", description="Watch the probabilities your deployed classifiers emit."
@@ -273,6 +319,20 @@ def build_parser() -> argparse.ArgumentParser:
     report.add_argument("--format", choices=("json", "html", "pdf"), default="pdf")
     report.add_argument("--out", required=True, help="file to write")
     report.set_defaults(func=cmd_report)
+
+    imp = sub.add_parser("import", help="store predictions or outcomes from a CSV or Parquet file")
+    imp.add_argument("kind", choices=tuple(FIELDS))
+    imp.add_argument("file", help="a .csv or .parquet file; refused rows go to FILE.rejected.csv")
+    imp.add_argument("--model", required=True)
+    imp.add_argument("--column", action="append", metavar="FIELD=COLUMN",
+                     help="read FIELD from COLUMN (repeatable); by default columns are named like the "
+                          "JSON fields, tags as tag.<key>")
+    imp.add_argument("--time-zone", dest="time_zone", metavar="ZONE",
+                     help="IANA zone of times written without an offset (else they are refused)")
+    imp.add_argument("--chunk-rows", dest="chunk_rows", type=int, default=10_000,
+                     help="rows read, checked and committed at a time (default 10000)")
+    imp.add_argument("--quiet", action="store_true", help="no progress bar")
+    imp.set_defaults(func=cmd_import)
 
     mig = sub.add_parser("migrate", help="create or upgrade the database schema")
     mig.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",
