@@ -25,6 +25,7 @@ from calibrant.app import create_app
 from calibrant.clock import SystemClock
 from calibrant.config import Settings
 from calibrant.errors import CalibrantError, InvalidInput, field_errors
+from calibrant.files import exporting
 from calibrant.files.importing import import_file, reject_path
 from calibrant.files.reading import FIELDS, FileProblem, Layout
 from calibrant.jobs import JobContext, run_all
@@ -280,6 +281,33 @@ def cmd_import(args: argparse.Namespace) -> int:
     return 1 if counts.rejected else 0
 
 
+def cmd_export(args: argparse.Namespace) -> int:
+    """Write metrics or cases to a CSV or Parquet file, with the API's ranges and filters."""
+    engine = make_engine(_settings())
+    out = Path(args.out or f"{args.model}-{args.kind}.{args.format}")
+    try:
+        with make_session_factory(engine)() as session:
+            if args.kind == "metrics":
+                written = exporting.export_metrics(
+                    session, args.model, out, args.format, start=args.start, end=args.end,
+                    granularity=args.granularity, window=args.window, version=args.version,
+                    tag=args.tag or [], now=SystemClock().now())
+            else:
+                written = exporting.export_cases(session, args.model, out, args.format, start=args.start,
+                                                 end=args.end, version=args.version, tag=args.tag or [])
+    except CalibrantError as exc:
+        details = exc.detail
+        if isinstance(exc, InvalidInput):
+            details += ": " + "; ".join(f"{e.field}: {e.message}" for e in exc.errors)
+        print(f"calibrant: {details}", file=sys.stderr)
+        return 2
+    finally:
+        engine.dispose()
+    unit = "period(s)" if args.kind == "metrics" else "case(s)"
+    print(f"{written} {unit} of {args.model} written to {out}")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="calibrant", description="Watch the probabilities your deployed classifiers emit."
@@ -333,6 +361,19 @@ def build_parser() -> argparse.ArgumentParser:
                      help="rows read, checked and committed at a time (default 10000)")
     imp.add_argument("--quiet", action="store_true", help="no progress bar")
     imp.set_defaults(func=cmd_import)
+
+    exp = sub.add_parser("export", help="write a model's metrics or cases to a CSV or Parquet file")
+    exp.add_argument("kind", choices=("metrics", "cases"))
+    exp.add_argument("--model", required=True)
+    exp.add_argument("--format", choices=exporting.FORMATS, default="csv")
+    exp.add_argument("--out", help="file to write (default MODEL-KIND.FORMAT here)")
+    exp.add_argument("--start", required=True, help="RFC 3339, inclusive")
+    exp.add_argument("--end", required=True, help="RFC 3339, exclusive")
+    exp.add_argument("--granularity", default="week", help="metrics: day | week | month")
+    exp.add_argument("--window", help="metrics: trailing window Nd (1-366) ending at each period's end")
+    exp.add_argument("--version", help="one model version; without it all versions are pooled")
+    exp.add_argument("--tag", action="append", metavar="KEY:VALUE", help="one filter key:value")
+    exp.set_defaults(func=cmd_export)
 
     mig = sub.add_parser("migrate", help="create or upgrade the database schema")
     mig.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",
