@@ -149,3 +149,18 @@ def test_a_naive_time_without_a_zone_is_refused_and_a_changed_prediction_is_a_re
     assert (counts.accepted, counts.rejected) == (0, 1)
     assert "immutable" in reject_path(path).read_text(encoding="utf-8")
     assert db.scalar("SELECT probability FROM predictions WHERE case_id = 'a'") == pytest.approx(0.2)
+
+
+def test_the_command_names_a_missing_column_and_writes_nothing(db: Database, tmp_path: Path, capsys,
+                                                                monkeypatch) -> None:
+    from calibrant.cli import main
+
+    monkeypatch.setenv("CALIBRANT_DATABASE_URL", db.url)
+    path = tmp_path / "o.csv"
+    path.write_text("case,label,observed_at\na,1,2026-03-03T10:00:00Z\n", encoding="utf-8")
+    assert main(["import", "outcomes", str(path), "--model", "m", "--quiet"]) == 2
+    assert "id (column 'id')" in capsys.readouterr().err
+    assert count_rows(db, "outcomes") == 0
+    assert main(["import", "outcomes", str(path), "--model", "m", "--quiet", "--column", "id=case"]) == 0
+    assert "accepted 1" in capsys.readouterr().out
+    assert count_rows(db, "outcomes") == 1
