@@ -164,3 +164,16 @@ def test_the_command_names_a_missing_column_and_writes_nothing(db: Database, tmp
     assert main(["import", "outcomes", str(path), "--model", "m", "--quiet", "--column", "id=case"]) == 0
     assert "accepted 1" in capsys.readouterr().out
     assert count_rows(db, "outcomes") == 1
+
+
+def test_an_unknown_time_zone_is_refused_before_anything_is_read(db: Database, tmp_path: Path, capsys,
+                                                                  monkeypatch) -> None:
+    from calibrant.cli import main
+
+    monkeypatch.setenv("CALIBRANT_DATABASE_URL", db.url)
+    path = tmp_path / "p.csv"
+    path.write_text("id,probability,scored_at\na,0.2,2026-03-03 10:00:00\n", encoding="utf-8")
+    argv = ["import", "predictions", str(path), "--model", "m", "--quiet", "--time-zone", "Nowhere/Town"]
+    assert main(argv) == 2
+    assert "--time-zone: unknown time zone 'Nowhere/Town'" in capsys.readouterr().err
+    assert count_rows(db, "predictions") == 0

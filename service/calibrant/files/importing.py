@@ -75,7 +75,7 @@ def import_file(
     counts = ImportCounts()
     rejects = _Rejects(reject_path(source))
     try:
-        with _progress(source, progress) as (chunks_of, bar):
+        with _Progress(source, progress) as (chunks_of, bar):
             for chunk in chunks_of(layout, chunk_rows):
                 _store_chunk(chunk, layout.kind, model, sessions, settings, clock, actor, counts, rejects)
                 counts.rows += len(chunk.lines)
@@ -89,7 +89,7 @@ def import_file(
     return counts
 
 
-class _progress:  # noqa: N801 — used as a context manager, read like a function
+class _Progress:
     """tqdm over the rows of a Parquet file, or over the bytes of a CSV read so far."""
 
     def __init__(self, source: Path, shown: bool) -> None:
