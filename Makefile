@@ -67,6 +67,7 @@ bench: $(STAMP)
 	$(BIN)/python -m tests.bench.report
 	$(BIN)/python -m tests.bench.coverage
 	$(BIN)/python -m tests.bench.delay
+	$(BIN)/python -m tests.bench.import
 
 clean:
 	rm -rf $(VENV) var .pytest_cache

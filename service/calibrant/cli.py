@@ -11,26 +11,32 @@ import logging.config
 import os
 import sys
 import time
+import zoneinfo
 from collections.abc import Sequence
-from typing import Any
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
-import uvicorn
-from fastapi import FastAPI
 from pydantic import ValidationError
 
-from calibrant import scheduler
-from calibrant.app import create_app
 from calibrant.clock import SystemClock
 from calibrant.config import Settings
 from calibrant.errors import CalibrantError, InvalidInput, field_errors
-from calibrant.jobs import JobContext, run_all
+from calibrant.files.importing import import_file, reject_path
+from calibrant.files.reading import FIELDS, FileProblem, Layout
 from calibrant.logs import FORMATS, log_config
-from calibrant.reports import build as report_build
-from calibrant.reports import render as report_render
 from calibrant.store import audit, keys_repo, migrate
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.keys_repo import Scope
 from calibrant.store.unit import DatabaseError, Engine, ping
+
+if TYPE_CHECKING:
+    from fastapi import FastAPI
+
+    from calibrant.jobs import JobContext
+
+# The server, the jobs and the reports are imported by the commands that use them, not here:
+# `calibrant import` of a large file must stay small in memory, and these imports alone (scipy,
+# plotly, reportlab, uvicorn) took its process from 166 to 267 MiB resident before reading a row.
 
 _WHOLE = "settings"
 # How long uvicorn waits for a worker to answer its health ping (its default is 5 s). A worker
@@ -80,6 +86,10 @@ def cmd_serve(args: argparse.Namespace) -> int:
                     file=sys.stderr,
                 )
                 return 2
+    import uvicorn  # noqa: PLC0415 — see the note on lazy imports at the top
+
+    from calibrant.app import create_app  # noqa: PLC0415
+
     logging_config = log_config(settings.log_level, settings.log_format)
     if settings.workers == 1:
         app = create_app(settings, engine=engine, run_scheduler=settings.jobs_in_server)
@@ -102,6 +112,8 @@ def cmd_serve(args: argparse.Namespace) -> int:
 
 def worker_app() -> FastAPI:
     """The app of one ``serve --workers N`` process, from the ``CALIBRANT_*`` environment."""
+    from calibrant.app import create_app  # noqa: PLC0415 — see the note on lazy imports at the top
+
     settings = _settings()
     return create_app(settings, run_scheduler=settings.jobs_in_server)
 
@@ -133,12 +145,16 @@ def _wait_for_database(engine: Engine, timeout: float, interval: float) -> bool:
 
 
 def _job_context(settings: Settings) -> JobContext:
+    from calibrant.jobs import JobContext  # noqa: PLC0415 — see the note on lazy imports at the top
+
     return JobContext(make_engine(settings), SystemClock(), settings)
 
 
 def cmd_refresh(args: argparse.Namespace) -> int:
     settings = _settings()
     logging.config.dictConfig(log_config(settings.log_level, settings.log_format))
+    from calibrant.jobs import run_all  # noqa: PLC0415 — see the note on lazy imports at the top
+
     ctx = _job_context(settings)
     report = run_all(ctx)
     for job, figures in report["jobs"].items():
@@ -152,6 +168,8 @@ def cmd_scheduler(args: argparse.Namespace) -> int:
     settings = _settings()
     logging.config.dictConfig(log_config(settings.log_level, settings.log_format))
     print(f"running scheduled jobs every {settings.refresh_seconds:g} s; Ctrl-C stops", file=sys.stderr)
+    from calibrant import scheduler  # noqa: PLC0415 — see the note on lazy imports at the top
+
     with contextlib.suppress(KeyboardInterrupt):
         scheduler.run_forever(_job_context(settings))
     return 0
@@ -212,6 +230,8 @@ def cmd_keys_revoke(args: argparse.Namespace) -> int:
 
 def cmd_report(args: argparse.Namespace) -> int:
     """Build a report as the API does (stored as a snapshot too) and write it to a file."""
+    from calibrant.reports import build as report_build  # noqa: PLC0415 — see the lazy-import note
+    from calibrant.reports import render as report_render  # noqa: PLC0415
     engine = make_engine(_settings())
     clock = SystemClock()
     with make_session_factory(engine)() as session:
@@ -231,6 +251,84 @@ def cmd_report(args: argparse.Namespace) -> int:
         handle.write(content)
     print(f"report of {args.model} ({args.format}, {len(content)} bytes, content hash "
           f"{report.body['content_hash']}) written to {args.out}")
+    return 0
+
+
+IMPORT_SQLITE_CACHE_MIB = 32
+IMPORT_CHUNK_ROWS = 20_000  # tests/bench/import.py: 10,000 paid a commit and dirty marks twice as often
+
+
+def _column_map(pairs: list[str] | None, kind: str) -> dict[str, str]:
+    mapping: dict[str, str] = {}
+    for pair in pairs or []:
+        name, sep, column = pair.partition("=")
+        if not sep or name not in FIELDS[kind] or not column:
+            raise SystemExit(f"calibrant: --column takes FIELD=COLUMN with FIELD one of "
+                             f"{', '.join(FIELDS[kind])}; got {pair!r}")
+        mapping[name] = column
+    return mapping
+
+
+def cmd_import(args: argparse.Namespace) -> int:
+    """Import a CSV or Parquet file through the ingest service (not the web server)."""
+    settings = _settings()
+    # The import writes one chunk at a time: a SQLite page cache of IMPORT_SQLITE_CACHE_MIB keeps
+    # its process under 300 MiB at a million rows (64 MiB, the server's default, took it past).
+    settings = settings.model_copy(update={"sqlite_cache_mib": min(settings.sqlite_cache_mib,
+                                                                   IMPORT_SQLITE_CACHE_MIB)})
+    if args.time_zone:
+        try:
+            zoneinfo.ZoneInfo(args.time_zone)
+        except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+            print(f"calibrant: --time-zone: unknown time zone {args.time_zone!r}", file=sys.stderr)
+            return 2
+    layout = Layout(args.kind, _column_map(args.column, args.kind), args.time_zone)
+    engine = make_engine(settings)
+    try:
+        counts = import_file(Path(args.file), layout, model=args.model, sessions=make_session_factory(engine),
+                             settings=settings, clock=SystemClock(), chunk_rows=args.chunk_rows,
+                             progress=not args.quiet)
+    except (FileProblem, FileNotFoundError) as exc:
+        print(f"calibrant: {exc}", file=sys.stderr)
+        return 2
+    except InvalidInput as exc:
+        print(f"calibrant: {exc.detail}: " + "; ".join(f"{e.field}: {e.message}" for e in exc.errors),
+              file=sys.stderr)
+        return 2
+    finally:
+        engine.dispose()
+    shown = ", ".join(f"{k} {v}" for k, v in counts.as_dict().items())
+    print(f"{args.kind} of {args.model} from {args.file}: {shown}")
+    if counts.rejected:
+        print(f"refused rows, with their line and reason: {reject_path(Path(args.file))}", file=sys.stderr)
+    return 1 if counts.rejected else 0
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    """Write metrics or cases to a CSV or Parquet file, with the API's ranges and filters."""
+    from calibrant.files import exporting  # noqa: PLC0415 — it needs the rollup; see the lazy-import note
+    engine = make_engine(_settings())
+    out = Path(args.out or f"{args.model}-{args.kind}.{args.format}")
+    try:
+        with make_session_factory(engine)() as session:
+            if args.kind == "metrics":
+                written = exporting.export_metrics(
+                    session, args.model, out, args.format, start=args.start, end=args.end,
+                    granularity=args.granularity, window=args.window, version=args.version,
+                    tag=args.tag or [], now=SystemClock().now())
+            else:
+                written = exporting.export_cases(session, args.model, out, args.format, start=args.start,
+                                                 end=args.end, version=args.version, tag=args.tag or [])
+    except CalibrantError as exc:
+        details = exc.detail
+        if isinstance(exc, InvalidInput):
+            details += ": " + "; ".join(f"{e.field}: {e.message}" for e in exc.errors)
+        print(f"calibrant: {details}", file=sys.stderr)
+        return 2
+    finally:
+        engine.dispose()
+    unit = "period(s)" if args.kind == "metrics" else "case(s)"
+    print(f"{written} {unit} of {args.model} written to {out}")
     return 0
 
 
@@ -273,6 +371,33 @@ def build_parser() -> argparse.ArgumentParser:
     report.add_argument("--format", choices=("json", "html", "pdf"), default="pdf")
     report.add_argument("--out", required=True, help="file to write")
     report.set_defaults(func=cmd_report)
+
+    imp = sub.add_parser("import", help="store predictions or outcomes from a CSV or Parquet file")
+    imp.add_argument("kind", choices=tuple(FIELDS))
+    imp.add_argument("file", help="a .csv or .parquet file; refused rows go to FILE.rejected.csv")
+    imp.add_argument("--model", required=True)
+    imp.add_argument("--column", action="append", metavar="FIELD=COLUMN",
+                     help="read FIELD from COLUMN (repeatable); by default columns are named like the "
+                          "JSON fields, tags as tag.<key>")
+    imp.add_argument("--time-zone", dest="time_zone", metavar="ZONE",
+                     help="IANA zone of times written without an offset (else they are refused)")
+    imp.add_argument("--chunk-rows", dest="chunk_rows", type=int, default=IMPORT_CHUNK_ROWS,
+                     help=f"rows read, checked and committed at a time (default {IMPORT_CHUNK_ROWS})")
+    imp.add_argument("--quiet", action="store_true", help="no progress bar")
+    imp.set_defaults(func=cmd_import)
+
+    exp = sub.add_parser("export", help="write a model's metrics or cases to a CSV or Parquet file")
+    exp.add_argument("kind", choices=("metrics", "cases"))
+    exp.add_argument("--model", required=True)
+    exp.add_argument("--format", choices=("csv", "parquet"), default="csv")
+    exp.add_argument("--out", help="file to write (default MODEL-KIND.FORMAT here)")
+    exp.add_argument("--start", required=True, help="RFC 3339, inclusive")
+    exp.add_argument("--end", required=True, help="RFC 3339, exclusive")
+    exp.add_argument("--granularity", default="week", help="metrics: day | week | month")
+    exp.add_argument("--window", help="metrics: trailing window Nd (1-366) ending at each period's end")
+    exp.add_argument("--version", help="one model version; without it all versions are pooled")
+    exp.add_argument("--tag", action="append", metavar="KEY:VALUE", help="one filter key:value")
+    exp.set_defaults(func=cmd_export)
 
     mig = sub.add_parser("migrate", help="create or upgrade the database schema")
     mig.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",

@@ -117,7 +117,12 @@ def parse_predictions(body: bytes, max_items: int, window: InstantWindow) -> Pre
     """Validate a predictions body; raise ``InvalidInput`` listing every bad item.
 
     ``scored_at`` must lie in ``window`` (``vocabulary.instants``)."""
-    items = _load_items(body, "predictions", max_items)
+    return check_predictions(_load_items(body, "predictions", max_items), window)
+
+
+def check_predictions(items: list[Any], window: InstantWindow) -> PredictionColumns:
+    """Validate prediction items already read (from a body or a file); ``InvalidInput`` lists
+    every bad item by its index in ``items``."""
     errors: list[FieldError] = []
     case_ids: list[str] = []
     versions: list[str] = []
@@ -176,7 +181,12 @@ def parse_outcomes(body: bytes, max_items: int, window: InstantWindow) -> Outcom
     """Validate an outcomes body; raise ``InvalidInput`` listing every bad item.
 
     ``observed_at`` must lie in ``window`` (``vocabulary.instants``)."""
-    items = _load_items(body, "outcomes", max_items)
+    return check_outcomes(_load_items(body, "outcomes", max_items), window)
+
+
+def check_outcomes(items: list[Any], window: InstantWindow) -> OutcomeColumns:
+    """Validate outcome items already read (from a body or a file); ``InvalidInput`` lists
+    every bad item by its index in ``items``."""
     errors: list[FieldError] = []
     case_ids: list[str] = []
     labels: list[int] = []

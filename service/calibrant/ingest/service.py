@@ -7,11 +7,13 @@ the unit of work, so a 2xx is sent only after the commit returned.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 from calibrant.clock import Clock
 from calibrant.errors import Conflict
-from calibrant.ingest.batch import parse_outcomes, parse_predictions
+from calibrant.ingest.batch import check_outcomes, check_predictions, parse_outcomes, parse_predictions
 from calibrant.store import audit, models_repo
+from calibrant.store.batches import OutcomeColumns, PredictionColumns
 from calibrant.store.ingest_writes import OutcomeWrite, insert_predictions, upsert_outcomes
 from calibrant.store.tables import Model
 from calibrant.store.unit import Session
@@ -52,7 +54,22 @@ def ingest_predictions(
     nothing, not even the model it names.
     """
     check_name(model_name)
-    batch = parse_predictions(body, max_items, window)
+    return _store_predictions(session, model_name, parse_predictions(body, max_items, window), clock, actor)
+
+
+def ingest_prediction_items(
+    session: Session, model_name: str, items: list[Any], *, window: InstantWindow, clock: Clock,
+    actor: str
+) -> PredictionResult:
+    """``ingest_predictions`` for items already read from elsewhere (a file): same checks, same
+    writes, same errors (indexes are positions in ``items``)."""
+    check_name(model_name)
+    return _store_predictions(session, model_name, check_predictions(items, window), clock, actor)
+
+
+def _store_predictions(
+    session: Session, model_name: str, batch: PredictionColumns, clock: Clock, actor: str
+) -> PredictionResult:
     if not len(batch):
         return PredictionResult(0, 0)
     model = _model_for_ingest(session, model_name, clock, actor)
@@ -76,8 +93,35 @@ def ingest_outcomes(
     writes nothing, not even the model it names.
     """
     check_name(model_name)
-    batch = parse_outcomes(body, max_items, window)
+    return _store_outcomes(session, model_name, parse_outcomes(body, max_items, window), clock, actor)
+
+
+def ingest_outcome_items(
+    session: Session, model_name: str, items: list[Any], *, window: InstantWindow, clock: Clock,
+    actor: str
+) -> OutcomeWrite:
+    """``ingest_outcomes`` for items already read from elsewhere (a file)."""
+    check_name(model_name)
+    return _store_outcomes(session, model_name, check_outcomes(items, window), clock, actor)
+
+
+def _store_outcomes(
+    session: Session, model_name: str, batch: OutcomeColumns, clock: Clock, actor: str
+) -> OutcomeWrite:
     if not len(batch):
         return OutcomeWrite(0, 0, 0, [])
     model = _model_for_ingest(session, model_name, clock, actor)
     return upsert_outcomes(session.connection(), model.id, batch, clock.now())
+
+
+def record_import(
+    session: Session, model_name: str, kind: str, detail: dict[str, Any], *, clock: Clock, actor: str
+) -> None:
+    """One audit line for a whole file import (its batches were stored by the functions above).
+
+    Nothing is recorded when no row reached the model (it may not even exist)."""
+    model = models_repo.get(session, model_name)
+    if model is None:
+        return
+    audit.record(session, at=clock.now(), actor=actor, action=f"import.{kind}", target=model_name,
+                 detail=detail, model_id=model.id)

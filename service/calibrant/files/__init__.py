@@ -1,0 +1,1 @@
+"""CSV and Parquet files in and out: `calibrant import` and `calibrant export`."""
