@@ -40,6 +40,7 @@ class Seeded:
     clock: FixedClock
     now: datetime
     alarm_id: int  # the drifting segment's alarm
+    crossing_case: str  # the case at which its chart crossed
     open_alarms: int  # the pooled "all cases" chart, which contains the segment, may alarm too
 
 
@@ -65,4 +66,4 @@ def seed(db: Database) -> Seeded:
         alarms = client.get(f"/v1/models/{MODEL}/alarms", params={"state": "open"}).json()["alarms"]
     drifting = [a for a in alarms if a["segment"] == {"key": DRIFTING[0], "value": DRIFTING[1]}]
     assert [a["rule"] for a in drifting] == ["calibration-chart-upper"], alarms
-    return Seeded(clock, clock.now(), drifting[0]["id"], len(alarms))
+    return Seeded(clock, clock.now(), drifting[0]["id"], drifting[0]["evidence"]["crossing_case"], len(alarms))

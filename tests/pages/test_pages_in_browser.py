@@ -83,6 +83,8 @@ def test_overview_model_and_alarm_pages_render_and_click_through(db: Database, b
         expect(page.get_by_test_id("alarm-state")).to_have_text("open")
         expect(page.get_by_test_id("crossing-step")).to_have_count(1)
         expect(page.get_by_test_id("crossing-case")).to_contain_text("outcome")
+        expect(page.get_by_test_id("nearby-case").filter(has_text=seeded.crossing_case)).to_have_count(1)
+        assert page.get_by_test_id("nearby-case").count() > 1
         expect(page.get_by_test_id("deliveries")).to_contain_text("alarm.opened")
         expect(page.get_by_test_id("caution")).to_be_visible()
         screenshot(page, shots, "alarm")

@@ -17,7 +17,7 @@ from calibrant.errors import NotFound, invalid
 from calibrant.models.service import case_record, require
 from calibrant.pages import figures
 from calibrant.rollup import metrics_service
-from calibrant.store import alarm_repo, models_repo, outbox_repo, rollup_repo
+from calibrant.store import alarm_repo, cases, models_repo, outbox_repo, rollup_repo
 from calibrant.store.unit import Session
 from calibrant.vocabulary.instants import required_instant
 
@@ -240,6 +240,7 @@ def alarm_page(session: Session, name: str, alarm_id: int) -> dict[str, Any]:
     is_chart = bool(evidence.get("chart_path")) and evidence.get("control_limit") is not None
     crossing_case = evidence.get("crossing_case")
     record = case_record(session, name, crossing_case) if crossing_case else None
+    neighbours = _cases_around(session, model.id, alarm, record)
     path = evidence.get("chart_path") or []
     steps = [{"at": t, "s": s, "change": s - path[i - 1][1] if i else None}
              for i, (t, s) in enumerate(path)][-PATH_STEPS_LISTED:]
@@ -249,6 +250,20 @@ def alarm_page(session: Session, name: str, alarm_id: int) -> dict[str, Any]:
         "model": model, "alarm": out, "segment_label": _segment_label(out["segment"]),
         "evidence": scalar_evidence, "design": evidence.get("design"), "detail": evidence.get("detail"),
         "figure": figures.cusum(evidence) if is_chart else None,
-        "crossing_case": crossing_case, "case": record, "steps": steps,
+        "crossing_case": crossing_case, "case": record, "steps": steps, "nearby": neighbours,
         "deliveries": outbox_repo.alarm_deliveries(session, model.id, alarm_id),
     }
+
+
+def _cases_around(session: Session, model_id: int, alarm: Any,
+                  record: cases.CaseRecord | None) -> list[cases.NearbyCase]:
+    """The alarm's stream's cases scored just before and after the crossing case (its version's
+    prediction, or its only one when the alarm spans every version)."""
+    if record is None or not record.predictions:
+        return []
+    own = [p for p in record.predictions if alarm.version is None or p.version == alarm.version]
+    if not own:
+        return []
+    segment = None if alarm.segment_key is None else (alarm.segment_key, alarm.segment_value)
+    return cases.nearby(session, model_id, own[0].version, own[0].scored_at, segment)
+
