@@ -69,4 +69,4 @@ def search(
         query = query.where(AuditEvent.at < end)
     if before_id is not None:
         query = query.where(AuditEvent.id < before_id)
-    return [(event, name) for event, name in session.execute(query).tuples()]
+    return [(event, name) for event, name in session.execute(query)]
