@@ -56,7 +56,7 @@ class Settings(BaseSettings):
     sqlite_cache_mib: int = Field(64, ge=1, description="SQLite page cache per connection.")
     db_pool_size: int = Field(5, ge=1, description="Connections kept per process (PostgreSQL).")
     request_seconds: float = Field(
-        8.0, gt=0, le=300,
+        6.0, gt=0, le=300,
         description="Deadline of a request's database work; past it the request answers 503 with "
         "Retry-After and its connection is closed (a stalled network is invisible to the server).",
     )

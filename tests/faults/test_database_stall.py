@@ -87,6 +87,7 @@ def test_stalled_database_answers_503_and_recovers_without_restart(db: Database,
 
             proxy.stall()
             results = _all_at_once(base, calls)
+            print(f"stalled: {len(results)} requests, slowest answer {max(t for *_x, t in results):.2f} s")
             slow = [(what, round(took, 1)) for what, _r, took in results if took > ANSWER_WITHIN_S]
             assert not slow, slow
             errors = [(what, repr(r)) for what, r, _t in results if not isinstance(r, httpx.Response)]
