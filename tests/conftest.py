@@ -29,6 +29,7 @@ from calibrant.store.engine import make_engine
 from calibrant.store.schema import Base
 
 DEFAULT_PG_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
+SUITE_REQUEST_SECONDS = 60.0
 IN_CI = os.environ.get("CI", "").lower() == "true"
 
 # CI replays the same generated examples every run, so a red build always reproduces;
@@ -90,6 +91,10 @@ class Database:
     engine: sa.Engine
 
     def settings(self, **overrides: object) -> Settings:
+        # A request's deadline (6 s by default) guards against a stalled database; on a shared CI
+        # machine a heavy but healthy test request can take longer, so the suite's apps get 60 s
+        # unless a test sets it. The deadline itself is tested in tests/faults with the default.
+        overrides.setdefault("request_seconds", SUITE_REQUEST_SECONDS)
         return Settings(database_url=self.url, **overrides)
 
     def scalar(self, sql: str, **params: object) -> object:

@@ -15,6 +15,7 @@ from fastapi import FastAPI
 import calibrant
 from calibrant import jobs, scheduler
 from calibrant.api import problems
+from calibrant.api.deadline import RequestDeadline
 from calibrant.api.request_gate import RequestGate
 from calibrant.api.routes import (
     alarms,
@@ -102,7 +103,10 @@ def create_app(
         lifespan=lifespan,
     )
     app.state.runtime = runtime  # read back only by api.deps.get_runtime
-    problems.install(app)
+    problems.install(app, settings.retry_after_seconds)
+    # Added first, so it runs inside the gate: a slow upload is not held against the deadline.
+    app.add_middleware(RequestDeadline, seconds=settings.request_seconds,
+                       retry_after=settings.retry_after_seconds)
     app.add_middleware(RequestGate, max_body_bytes=settings.max_body_bytes)
     app.include_router(health.router)
     app.include_router(openmetrics.router)

@@ -55,6 +55,30 @@ class Settings(BaseSettings):
     )
     sqlite_cache_mib: int = Field(64, ge=1, description="SQLite page cache per connection.")
     db_pool_size: int = Field(5, ge=1, description="Connections kept per process (PostgreSQL).")
+    request_seconds: float = Field(
+        6.0, gt=0, le=300,
+        description="Deadline of a request's database work; past it the request answers 503 with "
+        "Retry-After and its connection is closed (a stalled network is invisible to the server).",
+    )
+    job_seconds: float = Field(
+        3600.0, gt=0, le=7 * 86_400,
+        description="Deadline of one transaction of a background job (long enough for the largest "
+        "refresh step); past it the connection is closed and the job retries later.",
+    )
+    db_connect_seconds: int = Field(
+        5, ge=2, le=300, description="Longest wait to open a database connection (PostgreSQL)."
+    )
+    db_statement_seconds: float = Field(
+        3600.0, gt=0, le=7 * 86_400,
+        description="Server-side limit of one SQL statement (PostgreSQL statement_timeout).",
+    )
+    db_lock_seconds: float = Field(
+        5.0, gt=0, le=3600,
+        description="Longest wait for a lock: PostgreSQL lock_timeout, SQLite busy timeout.",
+    )
+    retry_after_seconds: int = Field(
+        5, ge=1, le=3600, description="Retry-After of a 503 when the database is down, stalled or locked."
+    )
     postgres_prepared_statements: bool = Field(
         True,
         description="Let psycopg prepare repeated statements on the server; false behind a "

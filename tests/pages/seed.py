@@ -66,4 +66,5 @@ def seed(db: Database) -> Seeded:
         alarms = client.get(f"/v1/models/{MODEL}/alarms", params={"state": "open"}).json()["alarms"]
     drifting = [a for a in alarms if a["segment"] == {"key": DRIFTING[0], "value": DRIFTING[1]}]
     assert [a["rule"] for a in drifting] == ["calibration-chart-upper"], alarms
-    return Seeded(clock, clock.now(), drifting[0]["id"], drifting[0]["evidence"]["crossing_case"], len(alarms))
+    alarm = drifting[0]
+    return Seeded(clock, clock.now(), alarm["id"], alarm["evidence"]["crossing_case"], len(alarms))

@@ -35,7 +35,8 @@ def ensure_defaults(session: Session, model: Model, now: datetime) -> None:
     """Create the default rules the first time a model's rules are needed."""
     if session.get(AlarmModelState, model.id) is not None:
         return
-    session.add(AlarmModelState(model_id=model.id, defaults_created_at=now))
+    if not alarm_repo.claim_model_state(session, model.id, now):
+        return  # another transaction (perhaps another server process) made them first
     for name, kind, params in DEFAULT_RULES:
         if alarm_repo.rule_named(session, model.id, name) is None:
             session.add(AlarmRule(model_id=model.id, name=name, kind=kind.value,

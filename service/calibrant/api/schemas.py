@@ -194,6 +194,9 @@ class HealthDetail(SparseModel):
 class Health(BaseModel):
     status: Literal["ok", "degraded"]
     database: Literal["ok", "unreachable"]
+    failed: list[str] = Field(
+        default_factory=list, description="The checks that failed, by name (database); empty when none."
+    )
     detail: HealthDetail = Field(default_factory=HealthDetail)
     outbox: OutboxHealth | None = Field(None, description="Webhook deliveries waiting, failing targets.")
 
@@ -204,6 +207,8 @@ PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
     413: {"description": "Body larger than the limit (problem details)."},
     415: {"description": "A body not sent as application/json, plain or gzip (problem details)."},
     422: {"description": "Invalid input; `errors` lists {index, field, message} (problem details)."},
+    503: {"description": "The database is down, stalled or locked; try again after `Retry-After` "
+                         "seconds (problem details)."},
 }
 
 

@@ -7,14 +7,17 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from datetime import UTC, datetime
+from typing import Any, cast
 
 from sqlalchemy import Connection, func, select
+from sqlalchemy.engine import CursorResult
 from sqlalchemy.orm import Session
 
 from calibrant.store.alarm_tables import OPEN, Alarm, AlarmModelState, AlarmRule, ChartStream
 from calibrant.store.rollup_tables import BucketSummary, DirtyBucket
 from calibrant.store.tables import Model, Prediction
 from calibrant.store.types import BIG_INTEGER_IDS
+from calibrant.store.upsert import insert_for
 
 
 # ----------------------------------------------------------------------------- rules
@@ -34,6 +37,22 @@ def model_state(session: Session, model_id: int, *, lock: bool = False) -> Alarm
         # One evaluator per model at a time across processes; SQLite serialises writers anyway.
         query = query.with_for_update(skip_locked=True)
     return session.scalars(query).one_or_none()
+
+
+def claim_model_state(session: Session, model_id: int, now: datetime) -> bool:
+    """Create the model's alarm state row unless it exists; True if this transaction created it.
+
+    INSERT … ON CONFLICT DO NOTHING, so two processes meeting a new model at the same moment
+    never collide on the key: on PostgreSQL the second INSERT waits for the first transaction
+    and then inserts nothing; SQLite has one writer at a time.
+    """
+    # Session.execute is typed as returning a Result; for DML it is a CursorResult (rowcount).
+    result = cast(CursorResult[Any], session.execute(
+        insert_for(session.get_bind().dialect.name, AlarmModelState)
+        .values(model_id=model_id, defaults_created_at=now)
+        .on_conflict_do_nothing(index_elements=["model_id"])
+    ))
+    return bool(result.rowcount)
 
 
 def all_models(session: Session) -> list[Model]:

@@ -18,31 +18,52 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session, sessionmaker
 
 from calibrant.config import Settings
+from calibrant.store import deadlines
+
+_SQLITE_JOB_BUSY_MS = 30_000
 
 
 def make_engine(settings: Settings, **overrides: Any) -> Engine:
     url = make_url(settings.database_url)
     if url.get_backend_name() == "sqlite":
         return _sqlite_engine(settings, url, **overrides)
+    connect_args: dict[str, Any] = {"connect_timeout": settings.db_connect_seconds}
     kwargs: dict[str, Any] = {
         "pool_size": settings.db_pool_size,
         "max_overflow": settings.db_pool_size,
         "pool_pre_ping": True,
+        # waiting for a free connection counts against a request's deadline
+        "pool_timeout": settings.request_seconds,
+        "connect_args": connect_args,
     }
     if not settings.postgres_prepared_statements:
         # psycopg prepares a statement on the server after its 5th run on a connection; behind a
         # transaction-mode pooler the next transaction may reach another server connection that has
         # never seen it. None turns preparing off (deploy/README.md, "Connection poolers").
-        kwargs["connect_args"] = {"prepare_threshold": None}
+        connect_args["prepare_threshold"] = None
     kwargs.update(overrides)
-    return create_engine(url, **kwargs)
+    engine = create_engine(url, **kwargs)
+    statement_ms = int(settings.db_statement_seconds * 1000)
+    lock_ms = int(settings.db_lock_seconds * 1000)
+
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_conn: Any, _record: Any) -> None:
+        # Set per connection rather than in the URL's options, which may already carry a search_path.
+        with dbapi_conn.cursor() as cur:
+            cur.execute(f"SET statement_timeout = {statement_ms}")
+            cur.execute(f"SET lock_timeout = {lock_ms}")
+        dbapi_conn.commit()
+
+    deadlines.install(engine, settings.job_seconds)
+    return engine
 
 
 def _sqlite_engine(settings: Settings, url: Any, **overrides: Any) -> Engine:
     database = url.database
     if database and database != ":memory:" and not database.startswith("file:"):
         Path(database).parent.mkdir(parents=True, exist_ok=True)
-    engine = create_engine(url, connect_args={"timeout": 30}, **overrides)
+    engine = create_engine(url, connect_args={"timeout": _SQLITE_JOB_BUSY_MS / 1000}, **overrides)
+    request_busy_ms = int(settings.db_lock_seconds * 1000)
     cache_kib = settings.sqlite_cache_mib * 1024
     synchronous = settings.sqlite_synchronous
 
@@ -53,7 +74,7 @@ def _sqlite_engine(settings: Settings, url: Any, **overrides: Any) -> Engine:
         cur.execute("PRAGMA journal_mode=WAL")
         cur.execute(f"PRAGMA synchronous={synchronous}")
         cur.execute("PRAGMA foreign_keys=ON")
-        cur.execute("PRAGMA busy_timeout=30000")
+        cur.execute(f"PRAGMA busy_timeout={_SQLITE_JOB_BUSY_MS}")
         cur.execute(f"PRAGMA cache_size=-{cache_kib}")
         cur.execute("PRAGMA wal_autocheckpoint=10000")
         cur.close()
@@ -62,6 +83,14 @@ def _sqlite_engine(settings: Settings, url: Any, **overrides: Any) -> Engine:
     def _on_begin(conn: Any) -> None:
         conn.exec_driver_sql("BEGIN IMMEDIATE")
 
+    @event.listens_for(engine, "checkout")
+    def _on_checkout(dbapi_conn: Any, _record: Any, _proxy: Any) -> None:
+        # A request waits for the write lock at most db_lock_seconds, then answers 503; a job waits
+        # longer, since nobody is waiting on its answer.
+        busy_ms = request_busy_ms if deadlines.in_request() else _SQLITE_JOB_BUSY_MS
+        dbapi_conn.execute(f"PRAGMA busy_timeout={busy_ms}")
+
+    deadlines.install(engine, settings.job_seconds)
     return engine
 
 

@@ -9,6 +9,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from calibrant.store.history_tables import PlanVersion, ReportSnapshot, SettingsVersion
+from calibrant.store.upsert import insert_for
 
 
 def add_version(session: Session, model_id: int, subject: str, content: Any, *, at: datetime,
@@ -110,11 +111,19 @@ def save_snapshot(session: Session, model_id: int, start: datetime, end: datetim
     ).one_or_none()
     if existing is not None:
         return existing
-    row = ReportSnapshot(model_id=model_id, start=start, end=end, as_of=as_of, content_hash=content_hash,
-                         generated_at=at, actor=actor, body=body)
-    session.add(row)
-    session.flush()
-    return row
+    # Two readers building the same report at once: the loser's INSERT does nothing (it waits for
+    # the winner on PostgreSQL) and both return the one stored row.
+    session.execute(
+        insert_for(session.get_bind().dialect.name, ReportSnapshot)
+        .values(model_id=model_id, start=start, end=end, as_of=as_of, content_hash=content_hash,
+                generated_at=at, actor=actor, body=body)
+        .on_conflict_do_nothing(index_elements=["model_id", "start", "end", "as_of", "content_hash"])
+    )
+    return session.scalars(
+        select(ReportSnapshot).where(
+            ReportSnapshot.model_id == model_id, ReportSnapshot.start == start, ReportSnapshot.end == end,
+            ReportSnapshot.as_of == as_of, ReportSnapshot.content_hash == content_hash)
+    ).one()
 
 
 def previous_snapshot(session: Session, model_id: int, start: datetime,

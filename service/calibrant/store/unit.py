@@ -14,16 +14,19 @@ from collections.abc import Callable
 from typing import TypeVar
 
 from sqlalchemy import Connection, Engine, event, text
-from sqlalchemy.exc import OperationalError, SQLAlchemyError
+from sqlalchemy.exc import DBAPIError, DisconnectionError, InterfaceError, OperationalError, SQLAlchemyError
+from sqlalchemy.exc import TimeoutError as PoolTimeout
 from sqlalchemy.orm import Session, SessionTransaction, sessionmaker
 
 __all__ = [
+    "UNAVAILABLE_ERRORS",
     "Connection",
     "DatabaseError",
     "Engine",
     "Session",
     "SessionFactory",
     "after_commit",
+    "is_unavailable",
     "ping",
     "run_unit_of_work",
 ]
@@ -31,6 +34,19 @@ __all__ = [
 T = TypeVar("T")
 SessionFactory = sessionmaker[Session]
 DatabaseError = SQLAlchemyError
+
+# The database is down, stalled (its connection cut by ``store.deadlines``), locked past the lock
+# timeout, or no pooled connection came free in time: a state that passes, not a bug.
+UNAVAILABLE_ERRORS: tuple[type[Exception], ...] = (
+    OperationalError, InterfaceError, DisconnectionError, PoolTimeout,
+)
+
+
+def is_unavailable(exc: BaseException) -> bool:
+    """True when ``exc`` says the database cannot answer now (answered 503), not that we erred."""
+    if isinstance(exc, UNAVAILABLE_ERRORS):
+        return True
+    return isinstance(exc, DBAPIError) and bool(exc.connection_invalidated)
 
 # PostgreSQL SQLSTATEs worth one more try: serialization failure, deadlock detected.
 _RETRYABLE_SQLSTATES = {"40001", "40P01"}

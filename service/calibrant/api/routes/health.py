@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import asyncio
+
 from fastapi import APIRouter
 from fastapi.responses import JSONResponse
 from starlette.concurrency import run_in_threadpool
@@ -25,10 +27,18 @@ async def healthz(runtime: RuntimeDep) -> JSONResponse:
             return type(exc).__name__
         return None
 
-    error = await run_in_threadpool(probe)
+    # The probe's own deadline is half the request's, so a stalled database is named here, in the
+    # body, before the request deadline answers for it; the stuck thread is freed by store.deadlines.
+    limit = runtime.settings.request_seconds / 2
+    try:
+        error = await asyncio.wait_for(asyncio.shield(run_in_threadpool(probe)), limit)
+    except TimeoutError:
+        error = f"no answer within {limit:g} s"
     if error:
-        health = Health(status="degraded", database="unreachable", detail=HealthDetail(error=error))
-        return JSONResponse(health.model_dump(mode="json"), status_code=503)
+        health = Health(status="degraded", database="unreachable", failed=["database"],
+                        detail=HealthDetail(error=error))
+        return JSONResponse(health.model_dump(mode="json"), status_code=503,
+                            headers={"Retry-After": str(runtime.settings.retry_after_seconds)})
     outbox = await run_in_threadpool(_outbox, runtime)
     health = Health(
         status="ok", database="ok", detail=HealthDetail(dialect=runtime.engine.dialect.name), outbox=outbox
