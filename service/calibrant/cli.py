@@ -239,11 +239,7 @@ def cmd_report(args: argparse.Namespace) -> int:
             report = report_build.build(session, args.model, start=args.start, end=args.end, as_of=args.as_of,
                                         now=clock.now(), actor="cli")
         except CalibrantError as exc:
-            details = exc.detail
-            if isinstance(exc, InvalidInput):
-                details += ": " + "; ".join(f"{e.field}: {e.message}" for e in exc.errors)
-            print(f"calibrant: {details}", file=sys.stderr)
-            return 2
+            return _refused(exc)
         session.commit()
     engine.dispose()
     content = report_render.render(report, args.format)
@@ -320,11 +316,7 @@ def cmd_export(args: argparse.Namespace) -> int:
                 written = exporting.export_cases(session, args.model, out, args.format, start=args.start,
                                                  end=args.end, version=args.version, tag=args.tag or [])
     except CalibrantError as exc:
-        details = exc.detail
-        if isinstance(exc, InvalidInput):
-            details += ": " + "; ".join(f"{e.field}: {e.message}" for e in exc.errors)
-        print(f"calibrant: {details}", file=sys.stderr)
-        return 2
+        return _refused(exc)
     finally:
         engine.dispose()
     unit = "period(s)" if args.kind == "metrics" else "case(s)"
@@ -417,6 +409,15 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _refused(exc: CalibrantError) -> int:
+    """Say on stderr why the service refused a command (each field named), and exit with 2."""
+    details = exc.detail
+    if isinstance(exc, InvalidInput):
+        details += ": " + "; ".join(f"{e.field}: {e.message}" for e in exc.errors)
+    print(f"calibrant: {details}", file=sys.stderr)
+    return 2
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     return int(args.func(args) or 0)
@@ -424,3 +425,4 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 if __name__ == "__main__":
     sys.exit(main())
+

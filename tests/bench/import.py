@@ -22,13 +22,13 @@ import subprocess
 import sys
 import tempfile
 import time
-import uuid
 from pathlib import Path
 
 import pandas as pd
 import sqlalchemy as sa
 from tests.bench.ingest import POSTGRES_URL, http_run
 from tests.bench.ingest_rows import BenchRows, Checksum, http_bodies, make_rows
+from tests.bench.scratch_schema import migrated_postgres_schema
 from tests.system.server import running_server
 
 from calibrant.config import Settings
@@ -126,21 +126,8 @@ def _sqlite(work_dir: Path, n_rows: int) -> dict:
 
 
 def _postgresql(work_dir: Path, n_rows: int) -> dict:
-    schema = f"calibrant_bench_{uuid.uuid4().hex[:8]}"
-    admin = sa.create_engine(POSTGRES_URL)
-    with admin.begin() as conn:
-        conn.exec_driver_sql(f'CREATE SCHEMA "{schema}"')
-    try:
-        sep = "&" if "?" in POSTGRES_URL else "?"
-        url = f"{POSTGRES_URL}{sep}options=-csearch_path%3D{schema}"
-        engine = make_engine(Settings(database_url=url))
-        migrate.upgrade(engine)
-        engine.dispose()
+    with migrated_postgres_schema(POSTGRES_URL) as url:
         return run_dialect("postgresql", url, work_dir, n_rows)
-    finally:
-        with admin.begin() as conn:
-            conn.exec_driver_sql(f'DROP SCHEMA IF EXISTS "{schema}" CASCADE')
-        admin.dispose()
 
 
 def format_table(results: list[dict]) -> str:

@@ -21,7 +21,6 @@ import os
 import sys
 import tempfile
 import time
-import uuid
 from pathlib import Path
 
 import httpx
@@ -33,6 +32,7 @@ if __name__ == "__main__":
 
 from tests.bench.ingest_raw import raw_postgresql, raw_sqlite
 from tests.bench.ingest_rows import Checksum, checksum, http_bodies, make_rows, outcome_bodies
+from tests.bench.scratch_schema import migrated_postgres_schema
 from tests.system.server import running_server
 
 from calibrant.config import Settings
@@ -120,22 +120,8 @@ def _sqlite(work_dir: Path, n_rows: int) -> dict:
 
 
 def _postgresql(work_dir: Path, n_rows: int) -> dict:
-    base = POSTGRES_URL
-    schema = f"calibrant_bench_{uuid.uuid4().hex[:8]}"
-    admin = sa.create_engine(base)
-    with admin.begin() as conn:
-        conn.exec_driver_sql(f'CREATE SCHEMA "{schema}"')
-    try:
-        sep = "&" if "?" in base else "?"
-        url = f"{base}{sep}options=-csearch_path%3D{schema}"
-        engine = make_engine(Settings(database_url=url))
-        migrate.upgrade(engine)
-        engine.dispose()
+    with migrated_postgres_schema(POSTGRES_URL) as url:
         return run_dialect("postgresql", url, work_dir, n_rows)
-    finally:
-        with admin.begin() as conn:
-            conn.exec_driver_sql(f'DROP SCHEMA IF EXISTS "{schema}" CASCADE')
-        admin.dispose()
 
 
 def run(small: bool = False, dialects: tuple[str, ...] = ("sqlite", "postgresql")) -> list[dict]:
