@@ -28,11 +28,10 @@ import pandas as pd
 import sqlalchemy as sa
 from tests.bench.ingest import POSTGRES_URL, http_run
 from tests.bench.ingest_rows import BenchRows, Checksum, http_bodies, make_rows
-from tests.bench.scratch_schema import migrated_postgres_schema
+from tests.bench.scratch_schema import migrated_postgres_schema, migrated_sqlite
 from tests.system.server import running_server
 
 from calibrant.config import Settings
-from calibrant.store import migrate
 from calibrant.store.engine import make_engine
 
 FULL_ROWS = 1_000_000
@@ -118,11 +117,7 @@ def run_dialect(dialect: str, database_url: str, work_dir: Path, n_rows: int) ->
 
 
 def _sqlite(work_dir: Path, n_rows: int) -> dict:
-    url = f"sqlite:///{work_dir / 'bench.db'}"
-    engine = make_engine(Settings(database_url=url))
-    migrate.upgrade(engine)
-    engine.dispose()
-    return run_dialect("sqlite", url, work_dir, n_rows)
+    return run_dialect("sqlite", migrated_sqlite(work_dir / "bench.db"), work_dir, n_rows)
 
 
 def _postgresql(work_dir: Path, n_rows: int) -> dict:

@@ -1,10 +1,12 @@
-"""A migrated PostgreSQL schema of its own for one bench run, dropped afterwards."""
+"""A migrated database of its own for one bench run: a PostgreSQL schema dropped afterwards, or
+a SQLite file."""
 
 from __future__ import annotations
 
 import uuid
 from collections.abc import Iterator
 from contextlib import contextmanager
+from pathlib import Path
 
 import sqlalchemy as sa
 
@@ -31,3 +33,12 @@ def migrated_postgres_schema(base_url: str) -> Iterator[str]:
         with admin.begin() as conn:
             conn.exec_driver_sql(f'DROP SCHEMA IF EXISTS "{schema}" CASCADE')
         admin.dispose()
+
+
+def migrated_sqlite(path: Path) -> str:
+    """The URL of a SQLite file at ``path``, migrated to head."""
+    url = f"sqlite:///{path}"
+    engine = make_engine(Settings(database_url=url))
+    migrate.upgrade(engine)
+    engine.dispose()
+    return url

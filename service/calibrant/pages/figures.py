@@ -38,15 +38,9 @@ def _layout(y_title: str, *, x_title: str = "UTC", height: int = 240, **extra: A
 
 
 def is_provisional(period: dict[str, Any]) -> bool:
-    """A period whose figures can still change.
-
-    The ``provisional`` flag when the metrics give one; until then, a period with cases
-    not yet mature (``n_immature`` > 0) is one whose labels are still arriving.
-    """
-    flag = period.get("provisional")
-    if flag is not None:
-        return bool(flag)
-    return int(period.get("n_immature") or 0) > 0
+    """A period whose figures can still change: the metrics' own ``provisional`` flag (labels
+    still arriving, or completeness below its level; ``rollup.outcome_delay``)."""
+    return bool(period.get("provisional"))
 
 
 def _band(periods: list[dict[str, Any]], key: str, name: str, color: str) -> Figure | None:

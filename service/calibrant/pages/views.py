@@ -2,8 +2,6 @@
 
 Every function reads; none writes (the default rules are not created here, unlike the
 rules listing of the API). Figures come from ``pages.figures``; the templates only lay out.
-Fields other issues add to a metric period (``provisional``, ``label_completeness``,
-``state``) are read with ``.get`` and shown when present.
 """
 
 from __future__ import annotations
@@ -66,7 +64,6 @@ def _headline(period: dict[str, Any] | None) -> dict[str, Any] | None:
         "labeled_share": period.get("label_coverage"),
         "completeness": period.get("label_completeness"),
         "provisional": figures.is_provisional(period),
-        "state": period.get("state"),
         "values": {key: {"value": period.get(key), "state": (status.get(key) or {}).get("state", "measured"),
                          "reason": (status.get(key) or {}).get("reason", "")} for key in HEADLINE},
     }
@@ -162,7 +159,7 @@ def _table_row(label: str, tag: str | None, period: dict[str, Any]) -> dict[str,
         "labeled_share": period.get("label_coverage"),
         "completeness": period.get("label_completeness"),
         "values": {k: period.get(k) for k in ("log_loss", "brier", "calibration_slope", "oe_ratio", "psi")},
-        "small": small or period.get("state") == "too_few_cases",
+        "small": small,
         "provisional": figures.is_provisional(period),
         "reasons": sorted({(s or {}).get("reason", "") for s in status.values()} - {""})[:2],
     }
