@@ -27,20 +27,20 @@ def share(value: float | None) -> str:
     return "—" if value is None else f"{value:.0%}"
 
 
-def instant(value: datetime | str | None) -> str:
+def _utc_text(value: datetime | str | None, pattern: str) -> str:
+    """An instant (or its RFC 3339 text) written in UTC; a dash for none."""
     if value is None:
         return "—"
-    if isinstance(value, str):
-        value = datetime.fromisoformat(value.replace("Z", "+00:00"))
-    return value.astimezone(UTC).strftime("%Y-%m-%d %H:%M UTC")
+    when = datetime.fromisoformat(value) if isinstance(value, str) else value  # 3.11 reads "Z"
+    return when.astimezone(UTC).strftime(pattern)
+
+
+def instant(value: datetime | str | None) -> str:
+    return _utc_text(value, "%Y-%m-%d %H:%M UTC")
 
 
 def day(value: datetime | str | None) -> str:
-    if value is None:
-        return "—"
-    if isinstance(value, str):
-        value = datetime.fromisoformat(value.replace("Z", "+00:00"))
-    return value.astimezone(UTC).strftime("%Y-%m-%d")
+    return _utc_text(value, "%Y-%m-%d")
 
 
 def rfc3339(value: datetime) -> str:
