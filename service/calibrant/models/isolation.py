@@ -117,7 +117,7 @@ class ModelGuard:
         with self.engine.begin() as conn:
             job_failures_repo.save(
                 conn, model_id, self.job,
-                error_class=type(exc).__name__, error_message=str(exc)[:MESSAGE_CHARS],
+                error_class=type(exc).__name__, error_message=_printable(str(exc))[:MESSAGE_CHARS],
                 attempts=attempts, first_seen_at=now if before is None else before.first_seen_at,
                 now=now, retry_at=now + self.backoff.delay(attempts),
                 quarantined_at=(before.quarantined_at if before and before.quarantined_at else now)
@@ -127,6 +127,11 @@ class ModelGuard:
         self._records[model_id] = record
         _log_failure(record, exc)
         return record
+
+
+def _printable(text: str) -> str:
+    """PostgreSQL text cannot hold NUL, and an error about bad data may quote some."""
+    return text.replace("\x00", "\\x00")
 
 
 def _log_failure(record: FailureRecord, exc: BaseException) -> None:
