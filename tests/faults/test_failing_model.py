@@ -27,14 +27,16 @@ from calibrant import jobs
 from calibrant.alarms import jobs as alarm_jobs
 from calibrant.clock import FixedClock
 from calibrant.logs import JsonFormatter
+from calibrant.models.isolation import Backoff, ModelGuard
 from calibrant.notify import jobs as notify_jobs
 from calibrant.notify.senders import RecordingSender
 from calibrant.rollup import refresh as refresh_module
-from calibrant.store import keys_repo
+from calibrant.store import keys_repo, rollup_repo
 from calibrant.store.alarm_tables import AlarmModelState
+from calibrant.store.dirty import DayKey
 from calibrant.store.engine import make_session_factory
 from calibrant.store.keys_repo import Scope
-from calibrant.store.rollup_tables import BucketSummary, DirtyBucket
+from calibrant.store.rollup_tables import BucketSummary, DaySummary, DirtyBucket, DirtyDay
 from calibrant.store.tables import AuditEvent, Model
 from calibrant.store.webhook_tables import WebhookDelivery
 from tests.conftest import Database, make_client
@@ -294,3 +296,31 @@ def _alarms_and_deliveries(db: Database, clock: FixedClock, client: TestClient,
         assert guarded.post("/v1/models/broken/resume").status_code == 401
         headers = {"authorization": f"Bearer {reader}"}
         assert guarded.post("/v1/models/broken/resume", headers=headers).status_code == 403
+
+
+def test_a_day_that_cannot_be_merged_holds_back_only_its_model(
+    db: Database, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    clock = FixedClock(START)
+    with _two_models(db, clock) as client:
+        sound, broken = _model_id(db, "sound"), _model_id(db, "broken")
+        real_hours_of_day = rollup_repo.hours_of_day
+
+        def hours_of_day(conn: sa.Connection, key: DayKey) -> list:
+            if key.model_id == broken:
+                raise ZeroDivisionError("injected fault in a day of the broken model")
+            return real_hours_of_day(conn, key)
+
+        monkeypatch.setattr(rollup_repo, "hours_of_day", hours_of_day)
+        guard = ModelGuard(db.engine, clock, refresh_module.JOB_NAME, Backoff(60, 300, 5))
+        report = refresh_module.refresh_dirty(db.engine, clock, worker="test", guard=guard)
+
+        assert sorted(key.model_id for key, _ in report.recomputed) == [sound, sound, broken, broken]
+        assert [key.model_id for key, _ in report.merged_days] == [sound]
+        assert _count(db, DaySummary, sound) > 0
+        assert _count(db, DaySummary, broken) == 0
+        with db.engine.connect() as conn:
+            days = conn.execute(sa.select(DirtyDay.claimed_by).where(DirtyDay.model_id == broken)).all()
+        assert days == [(None,)]  # still dirty, and given back for the retry
+        assert [(f["model"], f["job"], f["error_class"]) for f in _failures(client)] == [
+            ("broken", "refresh", "ZeroDivisionError")]
