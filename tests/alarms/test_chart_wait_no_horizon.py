@@ -102,7 +102,8 @@ def test_chart_without_horizon_waits_for_the_p95_delay_and_restates_its_alarm(db
     completeness = ev["label_completeness"]
     assert abs(completeness["complete_after_days"] - P95) < TOL
     assert abs(completeness["wait_after_maturity_days"] - P95) < TOL  # lag 0: the wait is the p95
-    assert completeness["risk_adjusted_for_delay"] is False
+    # both classes' delays are measured: the chart is fed the risk given a label by the case's age
+    assert completeness["risk_adjusted_for_delay"] is True
     # Every case read was at least P95 − TOL old; by the Gamma law at least this share had reported.
     assert completeness["mean_reported_share"] >= stats.gamma.cdf(P95 - TOL, SHAPE, scale=SCALE)
     crossing = int(np.flatnonzero(d["id"] == ev["crossing_case"])[0])

@@ -15,7 +15,8 @@ The statistic at the crossing is restated with the chart's own weights (Steiner 
 and 0 for one passed over: S' = S + Σ_changed [W(r, y_now) − W(r, y_then)]. It is exact
 while the run stays above 0 after each changed case (the run's cases are summed without the
 floor at 0) and a first-order figure otherwise; r is the risk the chart is fed
-(``charts.Reading.risks`` at the alarm's opening: p, or p · F̂(age) with implicit negatives).
+(``charts.Reading.risks`` at the alarm's opening: p, p · F̂(age) with implicit negatives, or
+the labeled-by-age risk without a horizon).
 ``n`` adds the cases that would now be read to the evidence's n.
 
 The job looks again only when some outcome of the run's span came after its last look; an

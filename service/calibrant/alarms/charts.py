@@ -329,8 +329,13 @@ class Reading:
     ``reported``: with a horizon and implicit negatives, the share of events already reported
     at a case's age, F(age); an unreported event reads as a 0, so under calibration
     P(y read = 1) = p · F(age), and the chart is fed that risk (reporting-delay adjustment,
-    Lawless 1994). None: the risk is p as it stands. ``shown``: the distribution whose F at
-    the cases' ages the evidence reports (the reports' own without a horizon).
+    Lawless 1994). ``by_class``: without a horizon, the events' and the non-events' delay
+    distributions (F₁, F₀). The chart reads only the cases labeled by their age a, and by
+    Bayes' rule under calibration P(y = 1 | labeled by a) = p F₁(a) / (p F₁(a) + (1 − p) F₀(a)):
+    when non-events report more slowly, the labels read lean towards events, and the chart is
+    fed that risk. Used once each class has ``MIN_REPORTS_FOR_P95`` reports. Neither: the risk
+    is p as it stands. ``shown``: the distribution whose F at the cases' ages the evidence
+    reports (the reports' own without a horizon).
     """
 
     model: Model
@@ -338,6 +343,7 @@ class Reading:
     complete_after_days: float | None
     reported: DelayDistribution | None
     shown: DelayDistribution | None = None
+    by_class: tuple[DelayDistribution, DelayDistribution] | None = None
 
     @classmethod
     def of(cls, model: Model, delay: outcome_delay.OutcomeDelay | None) -> Reading:
@@ -346,25 +352,35 @@ class Reading:
         has_horizon = model.outcome_horizon_days is not None
         adjust = bool(model.implicit_negatives) and has_horizon
         shown = events if adjust else (delay.reports if delay is not None and not has_horizon else None)
+        by_class = None
+        if not has_horizon and delay is not None and events is not None and delay.non_events is not None and (
+                min(events.n, delay.non_events.n) >= outcome_delay.MIN_REPORTS_FOR_P95):
+            by_class = (events, delay.non_events)
         return cls(model, outcome_delay.extra_wait(model, delay),
                    None if complete is None else complete / timedelta(days=1),
-                   events if adjust else None, shown)
+                   events if adjust else None, shown, by_class)
 
     def risks(self, p: np.ndarray, matured: list[datetime], now: datetime) -> tuple[np.ndarray, np.ndarray]:
-        """(risk the chart is fed, F at each case's age): p · F(now − scored_at), or p and F (1 unknown)."""
+        """(risk the chart is fed, F at each case's age): p · F(age), the labeled-by-age risk, or p."""
         if self.shown is None:
             return p, np.ones(p.size)
         # scored_at lies in the hour ending at matured_at − D: its middle is close enough for F
         age = ((now.timestamp() - _epoch(matured)) / _DAY + order_delay(self.model) / timedelta(days=1)
                + 1.0 / 48.0)
         f = self.shown.at(age)
-        return (p * f if self.reported is not None else p), f
+        if self.reported is not None:
+            return p * f, f
+        if self.by_class is not None:
+            seen_event, seen_non_event = p * self.by_class[0].at(age), (1.0 - p) * self.by_class[1].at(age)
+            total = seen_event + seen_non_event
+            return np.where(total > 0, seen_event / np.where(total > 0, total, 1.0), p), f
+        return p, f
 
     def evidence(self, f: np.ndarray) -> dict[str, Any]:
         return {"complete_after_days": self.complete_after_days,
                 "wait_after_maturity_days": None if self.wait is None else self.wait / timedelta(days=1),
                 "mean_reported_share": float(f.mean()) if f.size else None,
-                "risk_adjusted_for_delay": self.reported is not None}
+                "risk_adjusted_for_delay": self.reported is not None or self.by_class is not None}
 
 
 def _advance_window(session: Session, version: str, cases: MatureCases,

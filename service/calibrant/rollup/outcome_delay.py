@@ -10,7 +10,8 @@ pull the estimate short. Which reports count:
 * with implicit negatives, only events report (a non-event never does), so the
   distribution is that of the events' delays;
 * otherwise every label reports, and the distribution is of all of them; the
-  events' own distribution is kept beside it for the late-event share.
+  events' own distribution is kept beside it for the late-event share, and the
+  non-events' for the charts of a model without a horizon (``charts.Reading``).
 
 An event counts as one only if it happened inside the horizon: an outcome of 1
 whose ``occurred_at`` lies after scored_at + H is a 0 (``counts_as_event``). An
@@ -60,6 +61,7 @@ class OutcomeDelay:
     late_event_share: float | None  # None without a horizon, or without events
     late_events: int  # events seen reported after H + L in the look-back
     by_week: list[dict[str, Any]]
+    non_events: DelayDistribution | None = None  # explicit outcomes only; None when none reported
 
     def quantiles_days(self) -> dict[str, float]:
         return {name: round(self.reports.quantile(q), 4) for name, q in QUANTILES.items()}
@@ -72,6 +74,7 @@ class OutcomeDelay:
             "late_event_share": self.late_event_share,
             "late_events": self.late_events,
             "by_week": self.by_week,
+            "non_events": None if self.non_events is None else _dist_json(self.non_events),
         }
 
     @classmethod
@@ -83,6 +86,7 @@ class OutcomeDelay:
             late_event_share=doc["late_event_share"],
             late_events=int(doc["late_events"]),
             by_week=list(doc["by_week"]),
+            non_events=None if doc.get("non_events") is None else _dist_from(doc["non_events"]),
         )
 
 
@@ -123,6 +127,9 @@ def measure(conn: Connection, model: Model, now: datetime) -> OutcomeDelay | Non
     if reports is None:
         return None
     events = right_truncated_cdf(delay[event], waited[event], max_days=MAX_DELAY_DAYS)
+    non_events = None
+    if not model.implicit_negatives:
+        non_events = right_truncated_cdf(delay[~event], waited[~event], max_days=MAX_DELAY_DAYS)
     wait = horizon_and_lag(model)
     late = np.zeros(event.size, dtype=bool)
     share = None
@@ -131,7 +138,7 @@ def measure(conn: Connection, model: Model, now: datetime) -> OutcomeDelay | Non
         if events is not None:
             share = round(float(1.0 - events.at(wait / timedelta(days=1))), 5)
     return OutcomeDelay(now, reports, events, share, int(late.sum()),
-                        _by_week(rows.scored, delay, event, late, now))
+                        _by_week(rows.scored, delay, event, late, now), non_events)
 
 
 def _by_week(scored: np.ndarray, delay: np.ndarray, event: np.ndarray, late: np.ndarray,
