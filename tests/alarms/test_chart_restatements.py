@@ -77,7 +77,14 @@ def test_late_events_and_corrections_on_the_run_restate_a_chart_alarm(db: Databa
     assert late
     assert len(fixed) == 2
 
-    clock.advance(timedelta(days=1))
+    # A non-event reported for a case the chart read as 0 changes nothing: no entry.
+    quiet = next(r for r in south if r[3] == 0 and on_run(r[0], r[1]))
+    clock.advance(timedelta(hours=12))
+    _post(client, "outcomes", "outcomes", [{"id": quiet[0], "label": 0, "observed_at": iso(clock.now())}])
+    refresh(client)
+    assert client.get(f"/v1/models/m/alarms/{alarm['id']}").json()["restatements"] == []
+
+    clock.advance(timedelta(hours=12))
     later = clock.now()
     _post(client, "outcomes", "outcomes",
           [{"id": r[0], "label": 1, "observed_at": iso(later)} for r in rows if r[0] in held])

@@ -20,7 +20,8 @@ the labeled-by-age risk without a horizon).
 ``n`` adds the cases that would now be read to the evidence's n.
 
 The job looks again only when some outcome of the run's span came after its last look; an
-entry is added when the changed cases or the statistic moved. Alarms opened more than
+entry is added when the changed cases or the statistic moved (an outcome that leaves every
+label as it read, say a 0 for a case read as 0, adds none). Alarms opened more than
 ``outcome_delay.MAX_DELAY_DAYS`` ago are left alone, as window alarms are.
 """
 
@@ -88,14 +89,18 @@ def restate(session: Session, model: Model, alarm: Alarm, now: datetime) -> bool
     after = np.array([c.label_now for c in cases], dtype=np.int64)
     had = np.array([c.case_id in then for c in cases], dtype=bool)
     moved = before != after
+    if not history and not moved.any():  # outcomes came, but every label reads as it did
+        return False
     entry = _entry(model, evidence, [c for c, m in zip(cases, moved, strict=True) if m],
                    before[moved], after[moved], had[moved], alarm.opened_at, now, start, truncated)
-    last = history[-1] if history else {"changed_cases": 0, "statistic": evidence.get("statistic")}
-    if entry["changed_cases"] != last.get("changed_cases") or entry["statistic"] != last.get("statistic"):
+    last = history[-1] if history else None
+    moved_since = last is None or (entry["changed_cases"], entry["statistic"]) != (
+        last.get("changed_cases"), last.get("statistic"))
+    if moved_since:
         alarm.restatements = [*history, entry]
         return True
-    if history:  # nothing moved: remember that we looked, so the next look starts here
-        alarm.restatements = [*history[:-1], {**history[-1], "checked_at": rfc3339(now)}]
+    # nothing moved since the last entry: remember that we looked, so the next look starts here
+    alarm.restatements = [*history[:-1], {**history[-1], "checked_at": rfc3339(now)}]
     return False
 
 
