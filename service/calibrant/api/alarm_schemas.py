@@ -90,8 +90,11 @@ class RuleList(BaseModel):
 
 class AlarmEvidence(BaseModel):
     """Why the rule crossed. statistic, interval and n are common to every kind; the others depend
-    on it (a window's period_start, period_end, granularity and detail; a chart's control_limit,
-    chart_path and design; starvation's checked_at). Times inside are RFC 3339 strings."""
+    on it (a window's period_start, period_end, granularity, detail and label_completeness; a
+    chart's control_limit, chart_path, design and label_completeness: complete_after_days, the
+    wait after maturity, the mean share of reports in at the ages of the cases read and whether
+    the risk was adjusted for the delay; starvation's checked_at). Times inside are RFC 3339
+    strings."""
 
     model_config = ConfigDict(extra="allow")
 
