@@ -129,7 +129,8 @@ class OutcomeDelayOut(BaseModel):
     complete_after_days: float | None = Field(
         description="Age at which the rules treat a case as complete: horizon + lag, or the p95 delay "
                     "when it is longer and the late-event share exceeds 2 %; without a horizon the "
-                    "p95 delay."
+                    "p95 delay, null until it rests on 20 reports (the model's charts then read "
+                    "nothing yet). Charts read a case only once it is this old."
     )
     by_week: list[DelayWeek] = Field(description="The last 12 weeks of scoring, oldest first.")
 
