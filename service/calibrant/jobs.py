@@ -19,6 +19,7 @@ from calibrant.clock import Clock
 from calibrant.config import Settings
 from calibrant.notify.jobs import deliver_due
 from calibrant.notify.senders import Sender, sender_from_settings
+from calibrant.retention.job import apply_retention
 from calibrant.rollup.refresh import refresh_dirty
 from calibrant.store.engine import make_session_factory
 from calibrant.store.unit import Engine
@@ -66,12 +67,18 @@ def _deliver(ctx: JobContext) -> JobFigures:
     return deliver_due(make_session_factory(ctx.engine), ctx.clock, ctx.settings, sender).as_dict()
 
 
-# Order matters within a round: summaries first, then what reads them, delivery last,
-# so one round takes an ingest all the way to a webhook.
+def _retention(ctx: JobContext) -> JobFigures:
+    return apply_retention(ctx.engine, ctx.clock, ctx.settings, worker=worker_name()).as_dict()
+
+
+# Order matters within a round: summaries first, then what reads them, delivery next, so one
+# round takes an ingest all the way to a webhook; retention last, once the round's hours are
+# summarised (it never removes rows of an hour still waiting for its refresh).
 JOBS: tuple[Job, ...] = (
     Job("refresh", _refresh),
     Job("alarms", lambda ctx: alarm_jobs.run(ctx.engine, ctx.clock)),
     Job("deliver_webhooks", _deliver),
+    Job("retention", _retention),
 )
 
 

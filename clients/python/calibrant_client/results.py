@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import TypedDict
+from typing import NotRequired, TypedDict
 
 
 class PredictionCounts(TypedDict):
@@ -10,6 +10,9 @@ class PredictionCounts(TypedDict):
 
     accepted: int
     duplicates: int
+    # Rows for before the model's retention boundary, not stored; absent from servers older than
+    # retention, so not required.
+    expired: NotRequired[int]
 
 
 class OutcomeCounts(TypedDict):
@@ -18,3 +21,4 @@ class OutcomeCounts(TypedDict):
     accepted: int
     duplicates: int
     corrected: int
+    expired: NotRequired[int]  # outcomes of cases retention removed: not stored

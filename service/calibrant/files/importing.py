@@ -34,6 +34,7 @@ class ImportCounts:
     accepted: int = 0
     duplicates: int = 0
     corrected: int = 0
+    expired: int = 0  # for before the model's retention boundary: not stored (docs/retention.md)
     rejected: int = 0
 
     def as_dict(self) -> dict[str, int]:
@@ -132,10 +133,11 @@ def _store_chunk(
                     written = service.ingest_outcome_items(session, model, items, window=window,
                                                            clock=clock, actor=actor)
                     counts.corrected += written.corrected
-                    stored = service.PredictionResult(written.accepted, written.duplicates)
+                    stored = service.PredictionResult(written.accepted, written.duplicates, written.expired)
                 session.commit()
                 counts.accepted += stored.accepted
                 counts.duplicates += stored.duplicates
+                counts.expired += stored.expired
                 return
             except InvalidInput as exc:
                 session.rollback()
