@@ -29,7 +29,9 @@ from tests.retention.scenario import (
 )
 
 
-def test_retention_removes_old_raw_rows_while_the_metrics_for_those_periods_still_answer(db: Database) -> None:
+def test_retention_removes_old_raw_rows_while_the_metrics_for_those_periods_still_answer(
+    db: Database,
+) -> None:
     with make_client(db, clock=FixedClock(NOW)) as client:
         every = load(client)
         run_jobs(client)
@@ -80,7 +82,8 @@ def test_rows_for_a_removed_period_are_counted_expired_not_refused(db: Database)
         gone = next(c for c in every if c["scored_at"] < BOUNDARY)
         kept = next(c for c in every if c["scored_at"] >= BOUNDARY)
         late_label = post(client, "outcomes", [
-            {"id": gone["id"], "label": 1 - gone["y"], "observed_at": rfc(gone["scored_at"].replace(hour=21))},
+            {"id": gone["id"], "label": 1 - gone["y"],
+             "observed_at": rfc(gone["scored_at"].replace(hour=21))},
             {"id": "never-seen", "label": 1, "observed_at": "2026-01-20T09:00:00Z"},
             {"id": kept["id"], "label": 1 - kept["y"], "observed_at": rfc(NOW)},
         ])
@@ -121,7 +124,8 @@ def test_the_boundary_waits_for_an_hour_still_to_be_refreshed(db: Database) -> N
         load(client)
         run_jobs(client)
         set_retention(client)
-        post(client, "predictions", [{"id": "late-1", "probability": 0.4, "scored_at": "2026-01-20T07:30:00Z"}])
+        post(client, "predictions",
+             [{"id": "late-1", "probability": 0.4, "scored_at": "2026-01-20T07:30:00Z"}])
         first = apply_retention(db.engine, clock, db.settings(), worker="test")
         late_kept = db.scalar("SELECT count(*) FROM predictions WHERE case_id = 'late-1'")
         run_jobs(client)
@@ -134,12 +138,28 @@ def test_the_boundary_waits_for_an_hour_still_to_be_refreshed(db: Database) -> N
 
 
 def test_switching_retention_off_keeps_what_is_left(db: Database) -> None:
-    with make_client(db, clock=FixedClock(NOW)) as client:
+    clock = FixedClock(NOW)
+    with make_client(db, clock=clock) as client:
         every = load(client)
         run_jobs(client)
         set_retention(client)
         run_jobs(client)
         set_retention(client, None)
-        assert client.put(f"/v1/models/{MODEL}", json={"outcome_horizon_days": 60,
-                                                       "retention_days": 30}).status_code == 422
-    assert db.scalar("SELECT count(*) FROM predictions") == len([c for c in every if c["scored_at"] >= BOUNDARY])
+        clock.advance(timedelta(days=10))
+        later = run_jobs(client)["jobs"]["retention"]
+        model = client.get(f"/v1/models/{MODEL}").json()
+    kept = [c for c in every if c["scored_at"] >= BOUNDARY]
+    assert later["predictions"] == later["sealed"] == 0
+    assert db.scalar("SELECT count(*) FROM predictions") == len(kept)
+    assert (model["retention_days"], model["pruned_before"]) == (None, "2026-01-31T00:00:00Z")
+
+
+def test_a_retention_shorter_than_horizon_plus_lag_is_refused_naming_it(db: Database) -> None:
+    with make_client(db, clock=FixedClock(NOW)) as client:
+        refused = client.put(f"/v1/models/{MODEL}", json={"outcome_horizon_days": 28, "outcome_lag_days": 5,
+                                                          "retention_days": 30})
+        exists = client.get(f"/v1/models/{MODEL}")
+    assert refused.status_code == 422
+    assert [e["field"] for e in refused.json()["errors"]] == ["retention_days"]
+    assert "(33)" in refused.json()["errors"][0]["message"]
+    assert exists.status_code == 404  # nothing was written

@@ -47,7 +47,8 @@ def test_a_refresh_clears_a_mark_on_a_sealed_hour_without_emptying_its_summaries
     report = refresh_dirty(db.engine, clock, worker="test")
     assert report.sealed == 1
     assert report.buckets == 0
-    assert kept and _payloads(db, model_id) == kept
+    assert kept
+    assert _payloads(db, model_id) == kept
     assert db.scalar("SELECT count(*) FROM dirty_buckets") == 0
 
 
@@ -70,7 +71,8 @@ def test_an_as_of_report_of_a_removed_period_is_served_from_its_snapshot(db: Dat
     assert again["overall"] == first["overall"]
     assert "retention" in again["restatements"]["note"]
     assert never_generated.status_code == 409
-    assert never_generated.json()["conflicts"] == [{"field": "start", "pruned_before": "2026-01-31T00:00:00Z"}]
+    assert never_generated.json()["conflicts"] == [
+        {"field": "start", "pruned_before": "2026-01-31T00:00:00Z"}]
 
 
 def _webhook_rows(session: Session) -> None:
