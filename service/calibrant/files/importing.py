@@ -20,6 +20,7 @@ from tqdm import tqdm
 from calibrant.clock import Clock
 from calibrant.config import Settings
 from calibrant.errors import Conflict, InvalidInput
+from calibrant.files.prefetch import read_ahead
 from calibrant.files.reading import Chunk, Layout, csv_chunks, file_format, parquet_chunks, parquet_rows
 from calibrant.ingest import service
 from calibrant.store.unit import Session
@@ -77,7 +78,7 @@ def import_file(
     rejects = _Rejects(reject_path(source))
     try:
         with _Progress(source, progress) as (chunks_of, bar):
-            for chunk in chunks_of(layout, chunk_rows):
+            for chunk in read_ahead(chunks_of(layout, chunk_rows)):
                 _store_chunk(chunk, layout.kind, model, sessions, settings, clock, actor, counts, rejects)
                 counts.rows += len(chunk.lines)
                 bar(len(chunk.lines))
