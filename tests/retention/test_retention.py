@@ -8,12 +8,16 @@ Expected Brier scores and log-losses come from scikit-learn over the generated c
 from __future__ import annotations
 
 from datetime import timedelta
+from pathlib import Path
 
 import pytest
 from sklearn.metrics import brier_score_loss, log_loss
 
 from calibrant.clock import FixedClock
+from calibrant.files.importing import import_file
+from calibrant.files.reading import Layout
 from calibrant.retention.job import RETENTION_ACTOR, apply_retention
+from calibrant.store.engine import make_session_factory
 from tests.conftest import Database, make_client
 from tests.retention.scenario import (
     BOUNDARY,
@@ -163,3 +167,20 @@ def test_a_retention_shorter_than_horizon_plus_lag_is_refused_naming_it(db: Data
     assert [e["field"] for e in refused.json()["errors"]] == ["retention_days"]
     assert "(33)" in refused.json()["errors"][0]["message"]
     assert exists.status_code == 404  # nothing was written
+
+
+def test_an_import_counts_rows_for_a_removed_period_as_expired(db: Database, tmp_path: Path) -> None:
+    clock = FixedClock(NOW)
+    with make_client(db, clock=clock) as client:
+        load(client)
+        run_jobs(client)
+        set_retention(client)
+        run_jobs(client)
+    source = tmp_path / "backfill.csv"
+    source.write_text("id,probability,scored_at\n"
+                      "old-1,0.2,2026-01-10T09:00:00Z\n"
+                      "new-1,0.7,2026-02-10T09:00:00+01:00\n")
+    counts = import_file(source, Layout("predictions"), model=MODEL, sessions=make_session_factory(db.engine),
+                         settings=db.settings(), clock=clock, chunk_rows=10, progress=False)
+    assert (counts.accepted, counts.expired, counts.rejected) == (1, 1, 0)
+    assert db.scalar("SELECT count(*) FROM predictions WHERE case_id IN ('old-1', 'new-1')") == 1
