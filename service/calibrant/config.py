@@ -140,6 +140,18 @@ class Settings(BaseSettings):
     webhook_failing_after: int = Field(
         5, ge=1, description="Consecutive failed attempts after which a target is reported failing."
     )
+    webhook_retention_days: int | None = Field(
+        None, ge=1, le=36_500,
+        description="Days delivered webhook deliveries (and events left without any) are kept; "
+        "unset keeps them for ever. Pending and failed ones always stay.",
+    )
+    audit_retention_days: int | None = Field(
+        None, ge=1, le=36_500, description="Days audit events are kept; unset keeps them for ever."
+    )
+    retention_batch_rows: int = Field(
+        5_000, ge=1, le=1_000_000,
+        description="Rows the retention job removes per transaction (short transactions, no long locks).",
+    )
     webhook_batch_size: int = Field(20, ge=1, le=1000, description="Deliveries claimed at a time.")
     webhook_claim_seconds: float = Field(
         120.0, ge=1, description="How long a worker holds a claimed delivery before others may take it."

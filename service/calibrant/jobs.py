@@ -20,6 +20,7 @@ from calibrant.config import Settings
 from calibrant.models.isolation import Backoff, ModelGuard
 from calibrant.notify import jobs as notify_jobs
 from calibrant.notify.senders import Sender, sender_from_settings
+from calibrant.retention import job as retention_job
 from calibrant.rollup import refresh
 from calibrant.store.engine import make_session_factory
 from calibrant.store.unit import Engine
@@ -78,12 +79,19 @@ def _deliver(ctx: JobContext) -> JobFigures:
                                    guard=_guard(ctx, notify_jobs.JOB_NAME)).as_dict()
 
 
-# Order matters within a round: summaries first, then what reads them, delivery last,
-# so one round takes an ingest all the way to a webhook.
+def _retention(ctx: JobContext) -> JobFigures:
+    return retention_job.apply_retention(ctx.engine, ctx.clock, ctx.settings, worker=worker_name(),
+                                         guard=_guard(ctx, retention_job.JOB_NAME)).as_dict()
+
+
+# Order matters within a round: summaries first, then what reads them, delivery next, so one
+# round takes an ingest all the way to a webhook; retention last, once the round's hours are
+# summarised (it never removes rows of an hour still waiting for its refresh).
 JOBS: tuple[Job, ...] = (
     Job(refresh.JOB_NAME, _refresh),
     Job(alarm_jobs.JOB_NAME, _alarms),
     Job(notify_jobs.JOB_NAME, _deliver),
+    Job(retention_job.JOB_NAME, _retention),
 )
 
 

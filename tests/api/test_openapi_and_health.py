@@ -55,6 +55,7 @@ def test_openapi_documents_model_settings_body_and_error_responses(db: Database)
         "segment_keys",
         "reference",
         "false_alarms_per_year",
+        "retention_days",
     }
     assert {"401", "403", "422"} <= set(put["responses"])
     post = document["paths"]["/v1/models/{model}/predictions"]["post"]

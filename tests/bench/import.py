@@ -147,12 +147,16 @@ def main() -> int:
     dialects = ("sqlite", "postgresql") if args.dialect == "both" else (args.dialect,)
     n_rows = SMALL_ROWS if args.small else FULL_ROWS
     runners = {"sqlite": _sqlite, "postgresql": _postgresql}
+    load_before = os.getloadavg()
     with tempfile.TemporaryDirectory(prefix="calibrant-bench-") as tmp:
         results = []
         for dialect in dialects:
             (Path(tmp) / dialect).mkdir()
             results.append(runners[dialect](Path(tmp) / dialect, n_rows))
     print(format_table(results))
+    # The machine may be shared: the load says how much the figures can be trusted.
+    print("load average (1, 5, 15 min) before: {:.2f} {:.2f} {:.2f}; after: {:.2f} {:.2f} {:.2f}".format(
+        *load_before, *os.getloadavg()))
     return 0 if all(r["stored_rows_agree"] for r in results) else 1
 
 

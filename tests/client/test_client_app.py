@@ -37,12 +37,14 @@ def cases(n: int) -> list[dict]:
 
 
 def test_post_repost_outcomes_and_metrics(calibrant: Client) -> None:
-    assert calibrant.send_predictions("late-delivery", cases(5)) == {"accepted": 5, "duplicates": 0}
+    assert calibrant.send_predictions("late-delivery", cases(5)) == {"accepted": 5, "duplicates": 0,
+                                                                     "expired": 0}
     # A batch sent again (as a retry after a lost answer would) is stored once.
-    assert calibrant.send_predictions("late-delivery", cases(5)) == {"accepted": 0, "duplicates": 5}
+    assert calibrant.send_predictions("late-delivery", cases(5)) == {"accepted": 0, "duplicates": 5,
+                                                                     "expired": 0}
     outcomes = [{"id": f"order-{i}", "label": i % 2, "observed_at": T0 + timedelta(days=1)} for i in range(5)]
     answer = calibrant.send_outcomes("late-delivery", outcomes)
-    assert answer == {"accepted": 5, "duplicates": 0, "corrected": 0}
+    assert answer == {"accepted": 5, "duplicates": 0, "corrected": 0, "expired": 0}
     calibrant.request("POST", "/v1/refresh")
     out = calibrant.metrics("late-delivery", T0, T0 + timedelta(days=7), granularity="week")
     (week,) = out["periods"]
@@ -52,7 +54,7 @@ def test_post_repost_outcomes_and_metrics(calibrant: Client) -> None:
 
 def test_batches_larger_than_the_server_limit_are_split(calibrant: Client) -> None:
     calibrant.batch_size = 4  # small, so the split is visible without 10,000 items
-    assert calibrant.send_predictions("m", cases(10)) == {"accepted": 10, "duplicates": 0}
+    assert calibrant.send_predictions("m", cases(10)) == {"accepted": 10, "duplicates": 0, "expired": 0}
     model = calibrant.request("GET", "/v1/models/m")
     assert model["counts"]["predictions"] == 10
 

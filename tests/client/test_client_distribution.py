@@ -114,6 +114,6 @@ def test_pip_install_into_an_empty_venv_brings_httpx_only_and_sends_a_batch(
         sent = subprocess.run([str(python), "-c", SEND, server.base_url], capture_output=True, text=True,
                               env=_clean_env(), timeout=60, check=False)
         assert sent.returncode == 0, sent.stderr[-2000:]
-        assert json.loads(sent.stdout) == {"accepted": 4, "duplicates": 0}
+        assert json.loads(sent.stdout) == {"accepted": 4, "duplicates": 0, "expired": 0}
         stored = httpx.get(f"{server.base_url}/v1/models/late-delivery", timeout=10).json()
     assert stored["counts"]["predictions"] == 4

@@ -55,7 +55,7 @@ def test_the_entrypoint_migrates_and_serves_a_healthy_server_on_postgresql(
         with Client(base_url) as client:
             sent = client.send_predictions("late-delivery", [
                 {"id": "parcel-1", "probability": 0.4, "scored_at": "2026-11-02T08:00:00Z"}])
-        assert sent == {"accepted": 1, "duplicates": 0}
+        assert sent == {"accepted": 1, "duplicates": 0, "expired": 0}
         scraped = httpx.get(f"{base_url}/metrics", timeout=10)
         names = {f.name for f in text_string_to_metric_families(scraped.text)}
         assert "calibrant_predictions_stored" in names

@@ -118,7 +118,7 @@ def test_exactly_10000_items_are_accepted(db: Database) -> None:
     with make_client(db) as client:
         response = post_predictions(client, "churn", items)
     assert response.status_code == 200, response.text
-    assert response.json() == {"accepted": 10_000, "duplicates": 0}
+    assert response.json() == {"accepted": 10_000, "duplicates": 0, "expired": 0}
     assert count_rows(db, "predictions") == 10_000
 
 

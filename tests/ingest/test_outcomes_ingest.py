@@ -26,7 +26,7 @@ def test_label_forms_are_stored_as_0_or_1(db: Database, label: object, stored: i
     with make_client(db) as client:
         response = post_outcomes(client, "churn", [outcome("a", label)])
     assert response.status_code == 200, response.text
-    assert response.json() == {"accepted": 1, "duplicates": 0, "corrected": 0}
+    assert response.json() == {"accepted": 1, "duplicates": 0, "corrected": 0, "expired": 0}
     assert db.scalar("SELECT label FROM outcomes WHERE case_id = 'a'") == stored
 
 
@@ -35,7 +35,7 @@ def test_same_label_again_is_duplicate_whatever_observed_at(db: Database) -> Non
         post_outcomes(client, "churn", [outcome("a", 1, "2026-03-05T08:00:00Z")])
         response = post_outcomes(client, "churn", [outcome("a", True, "2026-04-01T00:00:00Z")])
         case = client.get("/v1/models/churn/cases/a").json()
-    assert response.json() == {"accepted": 0, "duplicates": 1, "corrected": 0}
+    assert response.json() == {"accepted": 0, "duplicates": 1, "corrected": 0, "expired": 0}
     assert case["outcome"]["observed_at"].startswith("2026-03-05T08:00:00")
     assert len(case["history"]) == 1
     assert count_rows(db, "outcome_revisions") == 1
@@ -47,7 +47,7 @@ def test_mixed_batch_counts_are_disjoint_and_sum_to_batch_size(db: Database) -> 
         batch = [outcome("new-1", 0), outcome("dup", 1), outcome("fix", 1), outcome("new-2", 1)]
         response = post_outcomes(client, "churn", batch)
     assert response.status_code == 200
-    assert response.json() == {"accepted": 2, "duplicates": 1, "corrected": 1}
+    assert response.json() == {"accepted": 2, "duplicates": 1, "corrected": 1, "expired": 0}
     assert count_rows(db, "outcomes") == 4
     assert count_rows(db, "outcome_revisions") == 5
 
@@ -62,7 +62,7 @@ def test_correction_replaces_label_and_history_keeps_every_label_oldest_first(db
         clock.advance(timedelta(days=1))
         back = post_outcomes(client, "churn", [outcome("a", True, "2026-03-07T08:00:00Z")])
         case = client.get("/v1/models/churn/cases/a").json()
-    assert fixed.json() == back.json() == {"accepted": 0, "duplicates": 0, "corrected": 1}
+    assert fixed.json() == back.json() == {"accepted": 0, "duplicates": 0, "corrected": 1, "expired": 0}
     assert case["outcome"]["label"] == 1
     assert case["outcome"]["revision"] == 3
     assert [h["label"] for h in case["history"]] == [1, 0, 1]
@@ -104,7 +104,7 @@ def test_an_outcome_labels_every_version_of_its_case(db: Database) -> None:
         response = post_outcomes(client, "churn", [outcome("a", 0)])
         counts = client.get("/v1/models/churn").json()["counts"]
         case = client.get("/v1/models/churn/cases/a").json()
-    assert response.json() == {"accepted": 1, "duplicates": 0, "corrected": 0}
+    assert response.json() == {"accepted": 1, "duplicates": 0, "corrected": 0, "expired": 0}
     assert counts == {"predictions": 4, "outcomes": 1, "labeled": 3}
     assert sorted(p["version"] for p in case["predictions"]) == ["challenger", "default", "shadow"]
     assert case["outcome"]["label"] == 0

@@ -91,7 +91,7 @@ def test_boundary_values_are_accepted(db: Database) -> None:
     with make_client(db) as client:
         response = post_predictions(client, "churn", batch)
     assert response.status_code == 200, response.text
-    assert response.json() == {"accepted": 4, "duplicates": 0}
+    assert response.json() == {"accepted": 4, "duplicates": 0, "expired": 0}
     assert count_rows(db, "predictions") == 4
 
 

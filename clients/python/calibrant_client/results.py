@@ -5,16 +5,28 @@ from __future__ import annotations
 from typing import TypedDict
 
 
-class PredictionCounts(TypedDict):
-    """``send_predictions``: new rows stored, and items the server already had (idempotent re-posts)."""
-
+class _PredictionCountsAlways(TypedDict):
     accepted: int
     duplicates: int
 
 
-class OutcomeCounts(TypedDict):
-    """``send_outcomes``: as for predictions, plus labels that replaced an earlier one (corrections)."""
+class PredictionCounts(_PredictionCountsAlways, total=False):
+    """``send_predictions``: new rows stored, and items the server already had (idempotent re-posts).
 
+    ``expired`` (rows for a period the model's retention removed, not stored) is absent from the
+    answers of servers older than retention, so it is not required."""
+
+    expired: int
+
+
+class _OutcomeCountsAlways(TypedDict):
     accepted: int
     duplicates: int
     corrected: int
+
+
+class OutcomeCounts(_OutcomeCountsAlways, total=False):
+    """``send_outcomes``: as for predictions, plus labels that replaced an earlier one (corrections);
+    ``expired`` counts outcomes of cases retention removed."""
+
+    expired: int

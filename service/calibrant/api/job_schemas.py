@@ -11,6 +11,8 @@ class RefreshJobCounts(BaseModel):
     rows_read: int = Field(description="Prediction rows read to recompute them.")
     requeued: int = Field(description="Recomputed while new rows arrived: queued again.")
     busy: int = Field(description="Held by another worker; left to it.")
+    sealed: int = Field(0, description="Marks of hours before a retention boundary, cleared without "
+                                       "recomputing (their raw rows are gone; the summaries stay).")
 
 
 class AlarmJobCounts(BaseModel):
@@ -29,10 +31,21 @@ class DeliveryJobCounts(BaseModel):
     claims_lost: int = Field(description="Claims that lapsed before the attempt (another worker took over).")
 
 
+class RetentionJobCounts(BaseModel):
+    sealed: int = Field(description="Models whose retention boundary advanced.")
+    predictions: int = Field(description="Raw predictions removed.")
+    outcomes: int = Field(description="Raw outcomes removed (cases without a prediction left).")
+    outcome_revisions: int = Field(description="Label history rows of those outcomes removed.")
+    deliveries: int = Field(description="Delivered webhook deliveries removed (with their attempts).")
+    events: int = Field(description="Webhook events removed once no delivery referred to them.")
+    audit_events: int = Field(description="Audit events removed.")
+
+
 class JobCounts(BaseModel):
     refresh: RefreshJobCounts
     alarms: AlarmJobCounts
     deliver_webhooks: DeliveryJobCounts
+    retention: RetentionJobCounts
 
 
 class RefreshOut(BaseModel):

@@ -73,6 +73,15 @@ class _PeriodBase(SparseModel):
                     "still inside horizon + lag, or (without a horizon) no delay measured yet.",
     )
     provisional_reason: str | None = Field(None, description="Why the period is provisional; null if not.")
+    raw_rows_removed: bool = Field(
+        False, description="Retention removed raw rows of this period: its figures come from the "
+                           "summaries kept, and late rows for it are counted `expired` (docs/retention.md)."
+    )
+    computed_under_settings_of: Instant | None = Field(
+        None, description="When part of the period was sealed by retention under settings that have "
+                          "changed since: the instant whose settings (GET …/history?at=) its summaries "
+                          "follow, the earliest if several. Null: the current settings apply throughout.",
+    )
 
 
 def _description(key: str) -> str:

@@ -69,6 +69,10 @@ class Restatements(BaseModel):
     changed: list[dict[str, Any]] = Field(
         description="Per whole span or week and headline metric: the value as of as_of and now."
     )
+    note: str | None = Field(
+        None, description="Present when the report was served from its stored snapshot because "
+                          "retention removed raw rows of the span: why nothing could be recomputed."
+    )
 
 
 class ReportOut(BaseModel):

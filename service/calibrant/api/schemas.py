@@ -56,12 +56,19 @@ class OutcomeBatchIn(BaseModel):
 class PredictionsAccepted(BaseModel):
     accepted: int = Field(description="New predictions stored.")
     duplicates: int = Field(description="Identical re-posts, stored already; nothing changed.")
+    expired: int = Field(
+        0, description="Scored before the model's retention boundary (pruned_before): not stored, since "
+                       "that period's raw rows are gone and its summaries are final."
+    )
 
 
 class OutcomesAccepted(BaseModel):
     accepted: int = Field(description="Cases that got their first label.")
     duplicates: int = Field(description="The same label again; nothing changed.")
     corrected: int = Field(description="A different label: replaced, the old one kept in history.")
+    expired: int = Field(
+        0, description="For a case retention removed: not stored and not an error (docs/retention.md)."
+    )
 
 
 class ModelCountsOut(BaseModel):
@@ -145,6 +152,13 @@ class ModelOut(BaseModel):
     reference: ReferenceOut | None = Field(description="What score drift is judged against; null: none.")
     false_alarms_per_year: float = Field(
         description="The one false-alarm budget all of the model's rules share (expected a year)."
+    )
+    retention_days: int | None = Field(
+        None, description="Days raw predictions and outcomes are kept; null: for ever."
+    )
+    pruned_before: Instant | None = Field(
+        None, description="Raw rows scored before this UTC midnight were removed by retention; their "
+                          "periods answer from stored summaries. Null: nothing removed."
     )
     created_at: Instant
     updated_at: Instant

@@ -25,6 +25,7 @@ from calibrant.vocabulary.names import check_name
 class PredictionResult:
     accepted: int
     duplicates: int
+    expired: int = 0  # scored before the model's retention boundary: not stored
 
 
 def _model_for_ingest(session: Session, name: str, clock: Clock, actor: str) -> Model:
@@ -80,7 +81,7 @@ def _store_predictions(
             "nothing was stored. Predictions are immutable: score a new version instead.",
             [{"index": c.index, "id": c.case_id, "version": c.version} for c in written.conflicts],
         )
-    return PredictionResult(written.accepted, written.duplicates)
+    return PredictionResult(written.accepted, written.duplicates, written.expired)
 
 
 def ingest_outcomes(

@@ -29,6 +29,7 @@ SETTING_NAMES = (
     "segment_keys",
     "reference",
     "false_alarms_per_year",
+    "retention_days",
 )
 
 
@@ -63,7 +64,8 @@ def put_settings(
     after = merged(before, patch, fields_set)
     problem = consistency_problem(after)
     if problem:
-        raise InvalidInput(problem, [FieldError(None, "implicit_negatives", problem)])
+        field, why = problem
+        raise InvalidInput(why, [FieldError(None, field, why)])
     changed = {k: {"from": before[k], "to": after[k]} for k in SETTING_NAMES if before[k] != after[k]}
     for key, value in after.items():
         setattr(model, key, value)

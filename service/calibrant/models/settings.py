@@ -73,6 +73,12 @@ class ModelSettingsPatch(BaseModel):
         description="Expected false alarms a year of all the model's rules together, when it is "
                     "well calibrated and its feeds are healthy (default 1).",
     )
+    retention_days: int | None = Field(
+        None, ge=1, le=36_500,
+        description="Days raw predictions and outcomes are kept, counted from scoring; older ones are "
+                    "removed by the retention job while their summaries stay. Null keeps them for ever. "
+                    "With a horizon it must be at least horizon + lag.",
+    )
 
     # A field validator (not a model validator) so the 422 names segment_keys, not the body.
     @field_validator("segment_keys")
@@ -108,8 +114,18 @@ def merged(current: dict[str, Any], patch: ModelSettingsPatch, fields_set: set[s
     return out
 
 
-def consistency_problem(settings: dict[str, Any]) -> str | None:
+def consistency_problem(settings: dict[str, Any]) -> tuple[str, str] | None:
+    """(field, why) when the settings contradict each other; None when they agree."""
     if settings.get("implicit_negatives") and settings.get("outcome_horizon_days") is None:
-        return "implicit_negatives needs outcome_horizon_days: without a horizon no case is ever mature"
+        return ("implicit_negatives",
+                "implicit_negatives needs outcome_horizon_days: without a horizon no case is ever mature")
+    retention, horizon = settings.get("retention_days"), settings.get("outcome_horizon_days")
+    if retention is not None and horizon is not None:
+        needed = horizon + (settings.get("outcome_lag_days") or 0)
+        if retention < needed:
+            # A case removed before its outcome may arrive would never be labelled.
+            why = (f"retention_days must be at least outcome_horizon_days + outcome_lag_days ({needed}): "
+                   "raw rows removed before their outcomes arrive would never be labelled")
+            return ("retention_days", why)
     return None
 

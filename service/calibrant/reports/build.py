@@ -6,6 +6,10 @@ its canonical JSON (sorted keys, times as RFC 3339 ``Z``) is hashed (SHA-256) in
 ``content_hash`` and stored as a snapshot. Rebuilding the same (model, start, end, as_of)
 later gives the same body and hash. ``restatements`` is the one part that looks past
 ``as_of``: what arrived after it for the span, and which figures that data changes.
+
+A span reaching before the model's retention boundary cannot be rebuilt (its raw rows are
+gone): it is served from the snapshot stored when it was generated, and refused (409) when
+none was (docs/retention.md).
 """
 
 from __future__ import annotations
@@ -19,7 +23,7 @@ import orjson
 
 from calibrant.alarms.service import rules_snapshot
 from calibrant.clock import rfc3339
-from calibrant.errors import invalid
+from calibrant.errors import Conflict, invalid
 from calibrant.models import history
 from calibrant.models.service import require, settings_of
 from calibrant.reports import numbers, sections
@@ -114,6 +118,8 @@ def build(session: Session, model_name: str, *, start: str | None, end: str | No
           now: datetime, actor: str) -> Report:
     model = require(session, model_name)
     lo, hi, when = _span(start, end, as_of, now)
+    if model.pruned_before is not None and lo < model.pruned_before:
+        return _from_snapshot(session, model, lo, hi, when, now)
     settings = history.in_force(session, model, SETTINGS, when, settings_of(model))
     rules = history.in_force(session, model, RULES, when, rules_snapshot(session, model))
     plan_row = history_repo.plan_at(session, model.id, when)
@@ -147,6 +153,33 @@ def build(session: Session, model_name: str, *, start: str | None, end: str | No
                                           at=now, actor=actor)
     restated = restatements(session, model, then, lo, hi, when, now, references, figures)
     return Report(body, orjson.loads(canonical(restated)), snapshot.id, now)
+
+
+def _from_snapshot(session: Session, model: Model, start: datetime, end: datetime, as_of: datetime,
+                   now: datetime) -> Report:
+    """The stored report of a span whose raw rows retention removed (in part)."""
+    boundary = model.pruned_before
+    assert boundary is not None  # the caller checked
+    row = history_repo.find_snapshot(session, model.id, start, end, as_of)
+    if row is None:
+        raise Conflict(
+            f"raw rows of {model.name!r} scored before {rfc3339(boundary)} were removed by its retention, "
+            "so a report reaching before then is served only from a snapshot stored when it was generated, "
+            "and none was stored for this start, end and as_of",
+            [{"field": "start", "pruned_before": rfc3339(boundary)}],
+        )
+    body = {**orjson.loads(row.body), "content_hash": row.content_hash}
+    later = as_of_rows.arrived_after(session.connection(), model.id, start, end, as_of) if as_of < now \
+        else as_of_rows.ArrivedLater(0, 0, 0)
+    restated = {
+        "checked_at": now,
+        "arrived_after_as_of": {"predictions": later.predictions, "first_labels": later.first_labels,
+                                "corrections": later.corrections},
+        "changed": [],
+        "note": f"served from the stored snapshot: raw rows before {rfc3339(boundary)} were removed by "
+                "retention, so the figures cannot be recomputed; arrivals count the rows still kept",
+    }
+    return Report(body, orjson.loads(canonical(restated)), row.id, now)
 
 
 def restatements(session: Session, model: Model, then: Model, start: datetime, end: datetime,

@@ -18,7 +18,7 @@ from calibrant.stats.result import Estimate
 from calibrant.stats.summary import Summary
 from calibrant.stats.summary_binned import ece, reliability_diagram
 from calibrant.stats.summary_metrics import spiegelhalter_z
-from calibrant.store import rollup_repo
+from calibrant.store import retention_repo, rollup_repo
 from calibrant.store.tables import Model
 from calibrant.store.unit import Session
 from calibrant.vocabulary.instants import required_instant
@@ -142,6 +142,8 @@ def metrics(
     )
     reference = reference_summary(conn, model, sel.segment)
     delay = outcome_delay.stored(model)
+    seals = ([] if model.pruned_before is None
+             else retention_repo.seals_overlapping(conn, model.id, first, spans[-1].end))
     body = []
     for span in spans:
         entry: dict[str, Any] = {"start": span.start, "end": span.end}
@@ -151,6 +153,7 @@ def metrics(
         state = outcome_delay.period_state(model, delay, days, span.data_start, span.end, now)
         entry.update(label_completeness=state.label_completeness, provisional=state.provisional,
                      provisional_reason=state.provisional_reason)
+        entry.update(sealed_state(model, seals, span.data_start, span.end))
         body.append(entry)
     return {
         "model": model.name,
@@ -160,6 +163,17 @@ def metrics(
         "refreshed_at": rollup_repo.last_job_run(conn, "refresh"),
         "periods": body,
     }
+
+
+def sealed_state(model: Model, seals: list[retention_repo.Seal], start: datetime,
+                 end: datetime) -> dict[str, Any]:
+    """Whether retention removed raw rows of [start, end), and, when a seal in it was made under
+    settings changed since (a lower settings generation), the earliest such seal's instant."""
+    removed = model.pruned_before is not None and start < model.pruned_before
+    stale = [s.sealed_at for s in seals
+             if s.settings_generation < model.settings_generation and s.sealed_before > start
+             and (s.sealed_from is None or s.sealed_from < end)]
+    return {"raw_rows_removed": removed, "computed_under_settings_of": min(stale) if stale else None}
 
 
 def reliability(

@@ -20,7 +20,7 @@ from collections import defaultdict
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from datetime import timedelta
+from datetime import datetime, timedelta
 from typing import Any
 
 from calibrant.clock import Clock
@@ -45,6 +45,7 @@ class RefreshReport:
     requeued: int = 0  # recomputed, but rows arrived meanwhile: dirty again
     busy: int = 0  # held by another worker
     days_requeued: int = 0  # merged, but one of its hours was stored meanwhile: dirty again
+    sealed: int = 0  # marks of hours before the retention boundary, cleared without recomputing
 
     @property
     def buckets(self) -> int:
@@ -57,6 +58,7 @@ class RefreshReport:
             "rows_read": self.rows_read,
             "requeued": self.requeued,
             "busy": self.busy,
+            "sealed": self.sealed,
         }
 
 
@@ -158,9 +160,14 @@ def _recompute_group(
     with engine.begin() as conn:
         now = clock.now()
         claims = [c for c in (dirty.claim(conn, k, worker, now, lease) for k in sorted(keys)) if c]
+        boundaries = {m: rollup_repo.pruned_before(conn, m) for m in {c.key.model_id for c in claims}}
     report.busy += len(keys) - len(claims)
+    sealed = [c for c in claims if _is_sealed(c.key, boundaries[c.key.model_id])]
+    if sealed:
+        _release_sealed(engine, sealed, report)
+        claims = [c for c in claims if c not in sealed]
     if not claims:
-        return False
+        return bool(sealed)
     with _released_on_error(engine, claims):
         computed = _read_buckets(engine, [c.key for c in claims], chunk_rows)
         # No transaction is open here: on SQLite every transaction holds the write lock,
@@ -171,6 +178,23 @@ def _recompute_group(
         report.rows_read += done.n_rows
         report.requeued += not ok
     return True
+
+
+def _is_sealed(key: BucketKey, boundary: datetime | None) -> bool:
+    return boundary is not None and key.hour < boundary
+
+
+def _release_sealed(engine: Engine, claims: list[dirty.Claim[BucketKey]], report: RefreshReport) -> None:
+    """Clear marks of hours whose raw rows retention removed, keeping their summaries.
+
+    Recomputing them would read no rows and replace the summaries with empty ones. (The
+    boundary never passes a marked hour and ingest expires rows for before it, but an outcome
+    marks the hour of every version of its case, and one version may lie before the boundary.)
+    """
+    with engine.begin() as conn:
+        for claim in claims:
+            dirty.finish(conn, claim)
+    report.sealed += len(claims)
 
 
 @dataclass

@@ -17,6 +17,7 @@ from typing import Any, Generic, TypeVar, cast, overload
 from sqlalchemy import ColumnElement, Connection, Table, and_, delete, func, or_, select, update
 
 from calibrant.store.rollup_tables import BucketSummary, DirtyBucket, DirtyDay
+from calibrant.store.tables import Model
 from calibrant.store.upsert import insert_for
 from calibrant.vocabulary.segments import ALL_SEGMENT
 
@@ -106,13 +107,18 @@ def mark(conn: Connection, keys: Iterable[KeyT], now: datetime) -> int:
 
 
 def mark_whole_model(conn: Connection, model_id: int, now: datetime) -> int:
-    """Mark every bucket of a model dirty (its summary settings changed)."""
-    keys = conn.execute(
-        select(BucketSummary.version, BucketSummary.hour).where(
-            BucketSummary.model_id == model_id, BucketSummary.segment_key == ALL_SEGMENT
-        )
+    """Mark every retained bucket of a model dirty (its summary settings changed).
+
+    Buckets before the model's retention boundary are left alone: their raw rows are gone, so
+    their summaries stay as computed under the earlier settings (``store.retention_repo``).
+    """
+    query = select(BucketSummary.version, BucketSummary.hour).where(
+        BucketSummary.model_id == model_id, BucketSummary.segment_key == ALL_SEGMENT
     )
-    return mark(conn, (BucketKey(model_id, v, h) for v, h in keys), now)
+    sealed = conn.execute(select(Model.pruned_before).where(Model.id == model_id)).scalar()
+    if sealed is not None:
+        query = query.where(BucketSummary.hour >= sealed)
+    return mark(conn, (BucketKey(model_id, v, h) for v, h in conn.execute(query)), now)
 
 
 @overload

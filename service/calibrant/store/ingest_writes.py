@@ -9,6 +9,10 @@ Concurrent writers of the same key are safe on PostgreSQL because the
 conflicting INSERT waits for the other transaction and the comparison runs
 as a new statement that sees the committed row.
 
+Retention: rows for before the model's boundary (``models.pruned_before``) are counted
+``expired`` and not written: the raw rows of that period are gone and its summaries are final
+(``store.retention_repo``).
+
 Outcomes: a model's outcome batches are serialised (a row lock on the model
 on PostgreSQL, the single SQLite writer otherwise) so that classifying each
 outcome as new, duplicate or correction cannot race.
@@ -21,7 +25,7 @@ from datetime import datetime
 
 from sqlalchemy import Connection, String, text
 
-from calibrant.store import dirty
+from calibrant.store import dirty, retention_repo
 from calibrant.store.batches import OutcomeColumns, PredictionColumns
 from calibrant.store.bulk import (
     OUTCOME_STAGING,
@@ -47,6 +51,7 @@ class PredictionWrite:
     accepted: int
     duplicates: int
     conflicts: list[PredictionConflict]
+    expired: int = 0
 
 
 @dataclass(frozen=True, slots=True)
@@ -56,11 +61,32 @@ class OutcomeWrite:
     corrected: int
     # case ids whose label is new or changed, for whoever needs to recompute
     changed_case_ids: list[str]
+    expired: int = 0  # for cases retention removed: not written
 
 
 def insert_predictions(
     conn: Connection, model_id: int, batch: PredictionColumns, received_at: datetime
 ) -> PredictionWrite:
+    boundary = retention_repo.boundary_for_ingest(conn, model_id)
+    kept = None if boundary is None else [i for i, t in enumerate(batch.scored_at) if t >= boundary]
+    if kept is not None and len(kept) < len(batch):
+        written = _insert_predictions(conn, model_id, _subset(batch, kept), received_at)
+        conflicts = [PredictionConflict(kept[c.index], c.case_id, c.version) for c in written.conflicts]
+        return PredictionWrite(written.accepted, written.duplicates, conflicts, len(batch) - len(kept))
+    return _insert_predictions(conn, model_id, batch, received_at)
+
+
+def _subset(batch: PredictionColumns, kept: list[int]) -> PredictionColumns:
+    return PredictionColumns([batch.case_id[i] for i in kept], [batch.version[i] for i in kept],
+                             [batch.probability[i] for i in kept], [batch.scored_at[i] for i in kept],
+                             [batch.tags[i] for i in kept])
+
+
+def _insert_predictions(
+    conn: Connection, model_id: int, batch: PredictionColumns, received_at: datetime
+) -> PredictionWrite:
+    if not len(batch):
+        return PredictionWrite(0, 0, [])
     conflicts: list[PredictionConflict]
     if _append_clean_batch(conn, model_id, batch, received_at):
         inserted, conflicts = len(batch), []
@@ -153,6 +179,8 @@ def upsert_outcomes(
             strict=True)
     )
     stage(conn, "staging_outcomes", OUTCOME_STAGING, rows)
+    boundary = retention_repo.boundary_for_ingest(conn, model_id, locked=True)
+    expired = set() if boundary is None else _drop_expired(conn, model_id, boundary)
     existing = conn.execute(
         text(
             "SELECT s.idx, o.label, o.revision FROM staging_outcomes s "
@@ -166,6 +194,8 @@ def upsert_outcomes(
     corrections: list[dict] = []
     duplicates = 0
     for idx in range(len(batch)):
+        if idx in expired:
+            continue
         if idx not in current:
             new_ids.append(batch.case_id[idx])
         elif current[idx][0] == batch.label[idx]:
@@ -222,7 +252,32 @@ def upsert_outcomes(
         duplicates=duplicates,
         corrected=len(corrections),
         changed_case_ids=changed,
+        expired=len(expired),
     )
+
+
+def _drop_expired(conn: Connection, model_id: int, boundary: datetime) -> set[int]:
+    """Take out of staging the outcomes of cases retention removed, and return their indexes.
+
+    A case is gone when it has predictions, all scored before the boundary (being removed), or
+    none at all and the outcome was observed before the boundary: its prediction, scored
+    before the outcome was observed, lay before the boundary too. (A case that lost its
+    prediction and gets an outcome observed after the boundary looks like a case whose
+    prediction has not arrived yet; it is stored and ages out in turn; docs/retention.md.)
+    """
+    params = {"model_id": model_id, "boundary": db_instant(conn, boundary)}
+    found = conn.execute(text(
+        "SELECT s.idx FROM staging_outcomes s WHERE NOT EXISTS "
+        "(SELECT 1 FROM predictions p WHERE p.model_id = :model_id AND p.case_id = s.case_id "
+        "AND p.scored_at >= :boundary) "
+        "AND (s.observed_at < :boundary OR EXISTS "
+        "(SELECT 1 FROM predictions p WHERE p.model_id = :model_id AND p.case_id = s.case_id))"
+    ), params)
+    expired = {int(i) for (i,) in found}
+    if expired:
+        conn.execute(text("DELETE FROM staging_outcomes WHERE idx = :idx"),
+                     [{"idx": i} for i in sorted(expired)])
+    return expired
 
 
 def _optional_instant(conn: Connection, value: datetime | None) -> object:

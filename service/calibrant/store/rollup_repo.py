@@ -98,6 +98,11 @@ def replace_summaries(
         )
 
 
+def pruned_before(conn: Connection, model_id: int) -> datetime | None:
+    """The model's retention boundary: hours before it are sealed (raw rows removed)."""
+    return conn.execute(select(Model.pruned_before).where(Model.id == model_id)).scalar()
+
+
 def horizon_days(conn: Connection, model_id: int) -> int | None:
     return conn.execute(select(Model.outcome_horizon_days).where(Model.id == model_id)).scalar()
 

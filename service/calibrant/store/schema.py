@@ -11,6 +11,7 @@ from calibrant.store import (
     history_tables,
     job_failure_tables,
     page_session_tables,
+    retention_tables,
     rollup_tables,
     tables,
     webhook_tables,
@@ -21,5 +22,5 @@ metadata = Base.metadata
 
 __all__ = [
     "Base", "alarm_tables", "history_tables", "job_failure_tables", "metadata", "page_session_tables",
-    "rollup_tables", "tables", "webhook_tables",
+    "retention_tables", "rollup_tables", "tables", "webhook_tables",
 ]

@@ -62,6 +62,11 @@ class Model(Base):
     # Bumped whenever a setting that changes summaries changes (keys, horizon,
     # lag, implicit negatives), so the rollup knows to rebuild.
     settings_generation: Mapped[int] = mapped_column(Integer, default=1)
+    # Days raw predictions and outcomes are kept (retention.prune); None keeps them for ever.
+    retention_days: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    # Raw rows scored before this instant (a UTC midnight) have been removed, or are being removed:
+    # their buckets' summaries are sealed (never recomputed) and late rows for them are `expired`.
+    pruned_before: Mapped[datetime | None] = mapped_column(nullable=True)
     created_at: Mapped[datetime]
     updated_at: Mapped[datetime]
 
@@ -83,7 +88,8 @@ class Prediction(Base):
     tags: Mapped[str | None] = mapped_column(Text, nullable=True)  # canonical JSON, sorted keys
     received_at: Mapped[datetime]
 
-    __table_args__ = (Index(None, "model_id", "version", "scored_at"),)
+    # The second index serves retention, which removes a model's rows by age whatever their version.
+    __table_args__ = (Index(None, "model_id", "version", "scored_at"), Index(None, "model_id", "scored_at"))
 
 
 class Outcome(Base):
@@ -154,3 +160,5 @@ class AuditEvent(Base):
     model_id: Mapped[int | None] = mapped_column(
         Integer, ForeignKey("models.id", ondelete="SET NULL"), nullable=True
     )
+
+    __table_args__ = (Index(None, "at"),)  # audit retention removes events by age

@@ -35,7 +35,16 @@ def parse_instant(text: object) -> datetime | str:
     Returning the message instead of raising keeps the per-item loop of batch
     validation cheap: most batches are clean and exceptions cost more than a
     type check.
+
+    An aware ``datetime`` is taken as the instant it is: file imports parse their time columns
+    column-wise (``files.reading``) and hand those over; a JSON body never holds one.
     """
+    if isinstance(text, datetime):
+        if text.tzinfo is UTC:
+            return text
+        if text.tzinfo is None or text.utcoffset() is None:
+            return "has no UTC offset; add Z or +hh:mm (naive times are ambiguous)"
+        return text.astimezone(UTC)
     if not isinstance(text, str):
         return "must be an RFC 3339 string such as 2026-03-01T12:00:00Z"
     if not _RFC3339.fullmatch(text):

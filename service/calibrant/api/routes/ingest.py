@@ -37,7 +37,7 @@ async def post_predictions(
     model: str, request: Request, runtime: RuntimeDep, caller: Ingester
 ) -> PredictionsAccepted:
     result = await _ingest(request, runtime, caller, model, service.ingest_predictions)
-    return PredictionsAccepted(accepted=result.accepted, duplicates=result.duplicates)
+    return PredictionsAccepted(accepted=result.accepted, duplicates=result.duplicates, expired=result.expired)
 
 
 @router.post(
@@ -52,7 +52,8 @@ async def post_outcomes(
 ) -> OutcomesAccepted:
     result = await _ingest(request, runtime, caller, model, service.ingest_outcomes)
     return OutcomesAccepted(
-        accepted=result.accepted, duplicates=result.duplicates, corrected=result.corrected
+        accepted=result.accepted, duplicates=result.duplicates, corrected=result.corrected,
+        expired=result.expired,
     )
 
 

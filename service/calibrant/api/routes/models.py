@@ -33,6 +33,7 @@ def _model_out(model: Model, counts: models_repo.ModelCounts | None = None) -> M
     return ModelOut(
         name=model.name,
         **service.settings_of(model),
+        pruned_before=model.pruned_before,
         created_at=model.created_at,
         updated_at=model.updated_at,
         counts=ModelCountsOut(
