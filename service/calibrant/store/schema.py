@@ -10,6 +10,7 @@ from calibrant.store import (
     alarm_tables,
     history_tables,
     page_session_tables,
+    refresh_job_tables,
     rollup_tables,
     tables,
     webhook_tables,
@@ -19,6 +20,7 @@ from calibrant.store.tables import Base
 metadata = Base.metadata
 
 __all__ = [
-    "Base", "alarm_tables", "history_tables", "metadata", "page_session_tables", "rollup_tables", "tables",
+    "Base", "alarm_tables", "history_tables", "metadata", "page_session_tables", "refresh_job_tables",
+    "rollup_tables", "tables",
     "webhook_tables",
 ]

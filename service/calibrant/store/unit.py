@@ -9,14 +9,17 @@ is a re-export.
 
 from __future__ import annotations
 
+import contextlib
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from typing import TypeVar
 
 from sqlalchemy import Connection, Engine, event, text
 from sqlalchemy.exc import DBAPIError, DisconnectionError, InterfaceError, OperationalError, SQLAlchemyError
 from sqlalchemy.exc import TimeoutError as PoolTimeout
 from sqlalchemy.orm import Session, SessionTransaction, sessionmaker
+
+from calibrant.store.engine import READ_OPTION, read_only
 
 __all__ = [
     "UNAVAILABLE_ERRORS",
@@ -28,6 +31,8 @@ __all__ = [
     "after_commit",
     "is_unavailable",
     "ping",
+    "read_only",
+    "reading",
     "run_unit_of_work",
 ]
 
@@ -105,6 +110,17 @@ def _drop_pending(session: Session, previous_transaction: SessionTransaction) ->
     # savepoint rolled back inside it leaves the outer transaction's callbacks pending.
     if not previous_transaction.nested:
         session.info[_AFTER_COMMIT] = []
+
+
+@contextlib.contextmanager
+def reading(engine: Engine) -> Iterator[Connection]:
+    """A connection in a transaction that only reads (deferred on SQLite: it never waits for a writer).
+
+    Ended by a rollback: there is nothing to commit, and a read that tried to write is undone.
+    """
+    with engine.connect().execution_options(**{READ_OPTION: True}) as conn, conn.begin() as tx:
+        yield conn
+        tx.rollback()
 
 
 def ping(engine: Engine) -> None:

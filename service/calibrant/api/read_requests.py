@@ -1,0 +1,28 @@
+"""GET and HEAD requests read only: their transactions begin deferred on SQLite, so they never queue
+behind a writer (a refresh storing summaries, an ingest). See ``store.engine``.
+
+In WAL mode a deferred transaction reads the last committed snapshot without taking any lock
+a writer holds. No GET route writes; one that did would still work unless another writer held
+the lock at that moment, when it would answer 503 with Retry-After instead of waiting.
+"""
+
+from __future__ import annotations
+
+from calibrant.api.request_gate import ASGIApp, Receive, Scope, Send
+from calibrant.store.unit import read_only
+
+READ_METHODS = frozenset({"GET", "HEAD"})
+
+
+class ReadOnlyRequests:
+    """ASGI middleware: a GET or HEAD request's database work runs inside ``store.unit.read_only``."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http" or scope["method"] not in READ_METHODS:
+            await self.app(scope, receive, send)
+            return
+        with read_only():  # the handler's task and its worker threads copy this context
+            await self.app(scope, receive, send)
