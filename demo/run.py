@@ -59,8 +59,13 @@ class _JobBar:
 
     def __init__(self) -> None:
         self.bar: Progress | None = None
+        self.asked = time.monotonic()
 
     def __call__(self, job: dict) -> None:
+        if self.asked:  # the first call is POST /v1/refresh's answer
+            say(f"  refresh job {job['id']} ({job['state']}) answered in "
+                f"{(time.monotonic() - self.asked) * 1000:.0f} ms")
+            self.asked = 0.0
         progress = job["progress"]
         if self.bar is None and progress["buckets_total"]:
             self.bar = Progress("summaries", progress["buckets_total"])
