@@ -1,4 +1,4 @@
-"""``calibrant refresh``: a refresh job with progress, that joins a running one and never ends in a traceback."""
+"""``calibrant refresh``: a refresh job with progress; it joins a running one, never ends in a traceback."""
 
 from __future__ import annotations
 
@@ -35,8 +35,8 @@ def test_refresh_joins_a_running_job_and_gives_up_after_its_timeout(
 ) -> None:
     now = datetime.now(UTC) + timedelta(hours=1)  # a heartbeat fresh for the whole test
     with db.engine.begin() as conn:
-        refresh_job_repo.start_or_join(conn, "elsewhere", worker="other-host:7", requested_by="local", now=now,
-                                       stale_before=now - timedelta(minutes=2), progress={})
+        refresh_job_repo.start_or_join(conn, "elsewhere", worker="other-host:7", requested_by="local",
+                                       now=now, stale_before=now - timedelta(minutes=2), progress={})
     monkeypatch.setenv("CALIBRANT_DATABASE_URL", db.url)
     assert cli.main(["refresh", "--timeout", "1", "--quiet"]) == 1
     err = capsys.readouterr().err

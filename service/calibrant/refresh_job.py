@@ -26,7 +26,7 @@ from typing import Any
 from calibrant import jobs
 from calibrant.store import dirty, refresh_job_repo
 from calibrant.store.dirty import BucketKey
-from calibrant.store.refresh_job_repo import FINAL_STATES, JobRow
+from calibrant.store.refresh_job_repo import JobRow
 from calibrant.store.unit import is_unavailable, reading
 
 log = logging.getLogger("calibrant.jobs")
@@ -75,14 +75,12 @@ class Tracker:
 
 
 class RefreshJobs:
-    """The API's job port (``api.runtime.JobRunner``) and the CLI's: start, read and await jobs."""
+    """The API's job port (``api.runtime.JobRunner``) and the CLI's: start jobs and read them."""
 
     def __init__(self, ctx: jobs.JobContext, *, lease_seconds: float, beat_seconds: float = 1.0) -> None:
         self.ctx = ctx
         self.lease = timedelta(seconds=lease_seconds)
         self.beat_seconds = beat_seconds
-        self._ended: dict[str, threading.Event] = {}  # jobs this process runs: set when they end
-        self._lock = threading.Lock()
 
     # ------------------------------------------------------------------ the port
     def start(self, requested_by: str) -> JobRow:
@@ -96,38 +94,7 @@ class RefreshJobs:
         with reading(self.ctx.engine) as conn:
             return refresh_job_repo.get(conn, job_id)
 
-    def latest(self, limit: int) -> list[JobRow]:
-        with reading(self.ctx.engine) as conn:
-            return refresh_job_repo.latest(conn, limit)
-
-    def wait(self, job_id: str, timeout_s: float, poll_s: float = 0.5) -> JobRow | None:
-        """The job once it ended, or as it stands when ``timeout_s`` passed (wall time); None if unknown."""
-        deadline = time.monotonic() + timeout_s
-        while True:
-            row = self.get(job_id)
-            remaining = deadline - time.monotonic()
-            if row is None or row.state in FINAL_STATES or remaining <= 0:
-                return row
-            ended = self._ended.get(job_id)
-            if ended is not None:  # ours: woken the moment it ends
-                ended.wait(min(remaining, poll_s * 4))
-            else:  # another process runs it: its row is the only news
-                time.sleep(min(remaining, poll_s))
-
-    # ------------------------------------------------------------------ running here
-    def run_here(self, requested_by: str) -> tuple[JobRow, bool]:
-        """Start a job and run it in the calling thread (``calibrant refresh``); False: joined a running one.
-
-        When another process runs a job, nothing is run here: the caller follows that one.
-        """
-        row, tracker = self._claim(requested_by)
-        if tracker is None:
-            return row, False
-        self._run(row, tracker)
-        ended = self.get(row.id)
-        assert ended is not None
-        return ended, True
-
+    # ------------------------------------------------------------------ running
     def _claim(self, requested_by: str) -> tuple[JobRow, Tracker | None]:
         ctx = self.ctx
         with reading(ctx.engine) as conn:
@@ -141,8 +108,6 @@ class RefreshJobs:
                 now=now, stale_before=now - self.lease, progress=tracker.snapshot(),
             )
         if started:
-            with self._lock:
-                self._ended[row.id] = threading.Event()
             log.info("refresh job %s started (requested by %s)", row.id, requested_by)
         return row, tracker if started else None
 
@@ -169,9 +134,6 @@ class RefreshJobs:
             beat.join()
             tracker.finished()
             self._finish(row, state, tracker, result, errors)
-            ended = self._ended.pop(row.id, None)
-            if ended is not None:
-                ended.set()
 
     def _beat(self, row: JobRow, tracker: Tracker, stop: threading.Event) -> None:
         while not stop.wait(self.beat_seconds):

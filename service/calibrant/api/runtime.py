@@ -56,8 +56,6 @@ class JobRunner(Protocol):
 
     def get(self, job_id: str) -> JobView | None: ...
 
-    def wait(self, job_id: str, timeout_s: float) -> JobView | None: ...
-
 
 @dataclass
 class Runtime:

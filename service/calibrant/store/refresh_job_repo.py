@@ -62,11 +62,6 @@ def running(conn: Connection) -> JobRow | None:
     return _row(found) if found is not None else None
 
 
-def latest(conn: Connection, limit: int) -> list[JobRow]:
-    rows = conn.execute(select(*_COLUMNS).order_by(_TABLE.c.started_at.desc(), _TABLE.c.id).limit(limit))
-    return [_row(r) for r in rows]
-
-
 def start_or_join(
     conn: Connection, job_id: str, *, worker: str, requested_by: str, now: datetime,
     stale_before: datetime, progress: dict[str, Any],

@@ -10,6 +10,8 @@ with the job as it stands when ``timeout`` seconds passed.
 
 from __future__ import annotations
 
+import asyncio
+import time
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Path, Query, Response
@@ -17,7 +19,7 @@ from starlette.concurrency import run_in_threadpool
 
 from calibrant.api.deps import Admin, RuntimeDep
 from calibrant.api.job_schemas import RefreshJobOut
-from calibrant.api.runtime import JobView
+from calibrant.api.runtime import JobView, Runtime
 from calibrant.api.schemas import PROBLEM_RESPONSES
 from calibrant.clock import rfc3339
 from calibrant.errors import NotFound
@@ -25,6 +27,7 @@ from calibrant.errors import NotFound
 router = APIRouter(tags=["jobs"])
 JOBS_PATH = "/v1/refresh-jobs"
 DEFAULT_WAIT_S = 600.0
+FIRST_POLL_S, LAST_POLL_S = 0.005, 0.5
 
 
 def job_out(job: JobView) -> dict[str, Any]:
@@ -59,12 +62,26 @@ async def refresh(
     # The jobs arrive through the runtime's job port: the API never imports them.
     job = await run_in_threadpool(runtime.jobs.start, caller.actor)
     if wait:
-        ended = await run_in_threadpool(runtime.jobs.wait, job.id, timeout)
-        job = ended if ended is not None else job
+        job = await _until_ended(runtime, job, timeout)
     response.headers["Location"] = f"{JOBS_PATH}/{job.id}"
     if job.state != "running":
         response.status_code = 200
     return job_out(job)
+
+
+async def _until_ended(runtime: Runtime, job: JobView, timeout: float) -> JobView:
+    """Poll the job's row until it ends or ``timeout`` seconds pass, holding no thread meanwhile.
+
+    The first polls come quickly (a small refresh ends in milliseconds), then every half second.
+    """
+    deadline = time.monotonic() + timeout
+    pause = FIRST_POLL_S
+    while job.state == "running" and (remaining := deadline - time.monotonic()) > 0:
+        await asyncio.sleep(min(pause, remaining))
+        pause = min(pause * 2, LAST_POLL_S)
+        seen = await run_in_threadpool(runtime.jobs.get, job.id)
+        job = seen if seen is not None else job
+    return job
 
 
 @router.get(
