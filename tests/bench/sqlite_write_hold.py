@@ -1,14 +1,16 @@
-"""How long the refresh holds SQLite's write lock: the longest write transaction of a refresh.
+"""How long a refresh job holds SQLite's write lock: the longest write transaction of each phase.
 
     .venv/bin/python -m tests.bench.sqlite_write_hold [--hours N] [--rows N] [--segments N]
 
-A model with ``--hours`` hour buckets of ``--rows`` predictions each, tagged with two segment
-keys (``--segments`` values each), refreshed once by ``rollup.refresh.refresh_dirty`` with its
-defaults (25 buckets a group). Each transaction is timed from its BEGIN (for a write, the moment
-the write lock is taken: ``BEGIN IMMEDIATE`` returns holding it) to its COMMIT or ROLLBACK.
-Printed: write transactions (they hold the lock; reads wait for none of it since reads begin
-deferred), and read transactions (the recompute's reading and summing, which before this change
-also held the write lock). The figure to state is the longest write transaction.
+A model with ``--hours`` hour buckets of ``--rows`` predictions each (every one labelled),
+tagged with two segment keys (``--segments`` values each), then every job run once to the end
+(``jobs.run_all``, as a refresh job runs it): the rollup's refresh with its defaults (25
+buckets a group), the alarm job, webhook delivery. Each transaction is timed from its BEGIN
+(for a write, the moment the write lock is taken: ``BEGIN IMMEDIATE`` returns holding it) to
+its COMMIT or ROLLBACK, and filed under the phase that ran it. Printed per phase: write
+transactions (they hold the lock; reads wait for none of it since reads begin deferred), and
+read transactions (the recompute's reading and summing, which before this change also held
+the write lock). The figure to state is the longest write transaction of the refresh phase.
 """
 
 from __future__ import annotations
@@ -28,10 +30,11 @@ from fastapi.testclient import TestClient
 from sqlalchemy import event
 from tests.bench.scratch_schema import migrated_sqlite
 
+from calibrant import jobs
 from calibrant.app import create_app
 from calibrant.clock import FixedClock
 from calibrant.config import Settings
-from calibrant.rollup.refresh import refresh_dirty
+from calibrant.notify.senders import LoggingSender
 from calibrant.store.engine import READ_OPTION, make_engine
 
 NOW = datetime(2026, 6, 1, tzinfo=UTC)
@@ -40,27 +43,52 @@ BATCH = 10_000
 
 @dataclass
 class Held:
-    writes_ms: list[float] = field(default_factory=list)
-    reads_ms: list[float] = field(default_factory=list)
-    refresh_s: float = 0.0
+    """Transaction times by phase (refresh, alarms, deliver_webhooks) and kind (write, read)."""
+
+    ms: dict[tuple[str, str], list[float]] = field(default_factory=dict)
+    seconds: float = 0.0
     buckets: int = 0
+    cases: int = 0
+    phase: str = "starting"
+
+    @property
+    def writes_ms(self) -> list[float]:
+        return self.ms.get(("refresh", "write"), [])
+
+    @property
+    def reads_ms(self) -> list[float]:
+        return self.ms.get(("refresh", "read"), [])
+
+
+class _Phases:
+    """A ``jobs.JobProgress`` that files the transactions of each phase under its name."""
+
+    def __init__(self, held: Held) -> None:
+        self.held = held
+
+    def phase(self, job: str, _round: int) -> None:
+        self.held.phase = job
+
+    def buckets_done(self, keys: list) -> None:
+        pass
 
 
 def _timed(engine: Any, held: Held) -> None:
-    opened: dict[int, tuple[float, bool]] = {}
+    opened: dict[int, tuple[float, str]] = {}
     lock = threading.Lock()
 
     @event.listens_for(engine, "begin")  # after the engine's own listener has sent BEGIN
     def _begun(conn: Any) -> None:
+        kind = "read" if conn.get_execution_options().get(READ_OPTION) else "write"
         with lock:
-            opened[id(conn)] = (time.perf_counter(), bool(conn.get_execution_options().get(READ_OPTION)))
+            opened[id(conn)] = (time.perf_counter(), kind)
 
     def _ended(conn: Any) -> None:
         with lock:
             started = opened.pop(id(conn), None)
         if started is not None:
             ms = (time.perf_counter() - started[0]) * 1000
-            (held.reads_ms if started[1] else held.writes_ms).append(ms)
+            held.ms.setdefault((held.phase, started[1]), []).append(ms)
 
     event.listen(engine, "commit", _ended)
     event.listen(engine, "rollback", _ended)
@@ -76,17 +104,20 @@ def measure(workdir: Path, hours: int, rows: int, segments: int) -> Held:
               "scored_at": (start + timedelta(hours=h, seconds=i % 3600)).isoformat(),
               "tags": {"region": f"r{i % segments}", "channel": f"c{(i // segments) % segments}"}}
              for h in range(hours) for i in range(rows)]
+    labels = [{"id": item["id"], "label": int(item["probability"] > 0.5),
+               "observed_at": (NOW - timedelta(hours=1)).isoformat()} for item in items]
     with TestClient(create_app(settings, engine=engine, clock=clock)) as client:
-        for offset in range(0, len(items), BATCH):
-            batch = {"predictions": items[offset:offset + BATCH]}
-            r = client.post("/v1/models/bench/predictions", json=batch)
-            assert r.status_code == 200, r.text
+        for kind, rows_ in (("predictions", items), ("outcomes", labels)):
+            for offset in range(0, len(rows_), BATCH):
+                r = client.post(f"/v1/models/bench/{kind}", json={kind: rows_[offset:offset + BATCH]})
+                assert r.status_code == 200, r.text
     held = Held()
     _timed(engine, held)
     t = time.perf_counter()
-    report = refresh_dirty(engine, clock, worker="bench")
-    held.refresh_s = time.perf_counter() - t
-    held.buckets = report.buckets
+    report = jobs.run_all(jobs.JobContext(engine, clock, settings, LoggingSender(), progress=_Phases(held)))
+    held.seconds = time.perf_counter() - t
+    held.buckets = report["jobs"]["refresh"]["buckets"]
+    held.cases = report["jobs"]["alarms"]["cases"]
     engine.dispose()
     return held
 
@@ -106,10 +137,10 @@ def main(argv: list[str] | None = None) -> None:
     args = parser.parse_args(argv)
     with tempfile.TemporaryDirectory() as tmp:
         held = measure(Path(tmp), args.hours, args.rows, args.segments)
-    print(f"refresh of {held.buckets} hour buckets × {args.rows} rows "
-          f"(2 segment keys × {args.segments} values) in {held.refresh_s:.1f} s")
-    print(_line("write (lock held)", held.writes_ms))
-    print(_line("read (no lock)", held.reads_ms))
+    print(f"every job to the end in {held.seconds:.1f} s: {held.buckets} hour buckets × {args.rows} rows "
+          f"(2 segment keys × {args.segments} values) refreshed, {held.cases} chart cases")
+    for (phase, kind), values in sorted(held.ms.items()):
+        print(_line(f"{phase} {kind}", values))
     print(f"  load average (1 min) at the end: {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs", flush=True)
 
 
