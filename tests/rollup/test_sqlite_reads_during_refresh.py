@@ -81,3 +81,45 @@ def test_reads_answer_while_the_refresh_holds_the_write_lock(db: Database) -> No
     assert count_rows(db, "bucket_summaries") > 0
     assert count_rows(db, "dirty_buckets") == 0
     impatient.engine.dispose()
+
+
+@pytest.mark.parametrize("db", ["sqlite"], indirect=True)
+def test_a_get_that_writes_after_another_commit_runs_again_as_a_writer(db: Database) -> None:
+    """The first GET of a model's rules creates its default rules. Begun deferred, it read a
+    snapshot; another writer commits before its first INSERT, so SQLite refuses the write
+    (SQLITE_BUSY_SNAPSHOT) and the unit of work runs again with ``BEGIN IMMEDIATE``: 200, once."""
+    with make_client(db, FixedClock(NOW)) as client:
+        item = {"id": "a", "probability": 0.4, "scored_at": (NOW - timedelta(days=1)).isoformat()}
+        assert client.post("/v1/models/m/predictions", json={"predictions": [item]}).status_code == 200
+        assert count_rows(db, "alarm_rules") == 0
+        main = threading.current_thread()
+        reached, committed = threading.Event(), threading.Event()
+
+        def before_insert(_conn, _cursor, statement: str, *_rest) -> None:
+            if threading.current_thread() is main or reached.is_set() or not statement.startswith("INSERT"):
+                return
+            reached.set()
+            assert committed.wait(60)
+
+        event.listen(db.engine, "before_cursor_execute", before_insert)
+
+        def commit_elsewhere() -> None:
+            assert reached.wait(60)
+            with db.engine.begin() as conn:  # any write: the GET's snapshot is now outdated
+                conn.exec_driver_sql("INSERT INTO job_runs (job, worker, started_at, finished_at, units, rows) "
+                                     "VALUES ('other', 'x', '2026-01-01', '2026-01-01', 0, 0)")
+            committed.set()
+
+        other = threading.Thread(target=commit_elsewhere)
+        other.start()
+        try:
+            answer = client.get("/v1/models/m/rules")
+        finally:
+            committed.set()
+            other.join(60)
+            event.remove(db.engine, "before_cursor_execute", before_insert)
+        assert reached.is_set()
+        assert answer.status_code == 200, answer.text
+        names = [r["name"] for r in answer.json()["rules"]]
+        assert len(names) == len(set(names)) > 0
+        assert count_rows(db, "alarm_rules") == len(names)

@@ -2,8 +2,9 @@
 behind a writer (a refresh storing summaries, an ingest). See ``store.engine``.
 
 In WAL mode a deferred transaction reads the last committed snapshot without taking any lock
-a writer holds. No GET route writes; one that did would still work unless another writer held
-the lock at that moment, when it would answer 503 with Retry-After instead of waiting.
+a writer holds. A few GETs write once in a while (the first read of a model's rules creates its
+default rules; a report stores its snapshot): such a unit of work, refused the lock or working
+on an outdated snapshot, runs again as a writer (``store.unit.run_unit_of_work``).
 """
 
 from __future__ import annotations

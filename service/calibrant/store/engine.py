@@ -35,14 +35,30 @@ _READ_ONLY: ContextVar[bool] = ContextVar("calibrant_read_only", default=False)
 def read_only() -> Iterator[None]:
     """Transactions begun inside this block (and threads it starts) only read: deferred on SQLite.
 
-    One that writes anyway still works while no other writer holds the lock; under contention
-    it fails at once with "database is locked", which the API answers 503 with Retry-After.
+    One that writes anyway (a GET that creates a model's default rules the first time) works
+    while no other writer holds the lock; under contention it fails with "database is locked",
+    and ``unit.run_unit_of_work`` runs it again inside ``may_write``, queueing for the lock.
     """
     token = _READ_ONLY.set(True)
     try:
         yield
     finally:
         _READ_ONLY.reset(token)
+
+
+@contextlib.contextmanager
+def may_write() -> Iterator[None]:
+    """Undo ``read_only`` for this block: its transactions begin ``BEGIN IMMEDIATE`` again."""
+    token = _READ_ONLY.set(False)
+    try:
+        yield
+    finally:
+        _READ_ONLY.reset(token)
+
+
+def reads_only() -> bool:
+    """True inside ``read_only`` (and not inside a ``may_write`` within it)."""
+    return _READ_ONLY.get()
 
 
 def make_engine(settings: Settings, **overrides: Any) -> Engine:
