@@ -106,8 +106,9 @@ def test_a_get_that_writes_after_another_commit_runs_again_as_a_writer(db: Datab
         def commit_elsewhere() -> None:
             assert reached.wait(60)
             with db.engine.begin() as conn:  # any write: the GET's snapshot is now outdated
-                conn.exec_driver_sql("INSERT INTO job_runs (job, worker, started_at, finished_at, units, rows) "
-                                     "VALUES ('other', 'x', '2026-01-01', '2026-01-01', 0, 0)")
+                conn.exec_driver_sql(
+                    "INSERT INTO job_runs (job, worker, started_at, finished_at, units, rows) "
+                    "VALUES ('other', 'x', '2026-01-01', '2026-01-01', 0, 0)")
             committed.set()
 
         other = threading.Thread(target=commit_elsewhere)
