@@ -4,7 +4,7 @@ One new table; no existing data moves. ``running_slot`` is unique and NULL once 
 job ends, so at most one job runs at a time across every process on the database.
 
 Revision ID: 0015
-Revises: 0013
+Revises: 0014
 Create Date: 2026-12-03
 """
 
@@ -14,7 +14,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = "0015"
-down_revision = "0013"
+down_revision = "0014"
 branch_labels = None
 depends_on = None
 

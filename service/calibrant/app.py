@@ -23,6 +23,7 @@ from calibrant.api.routes import (
     health,
     ingest,
     metrics,
+    model_resume,
     models,
     openmetrics,
     refresh,
@@ -104,6 +105,7 @@ def create_app(
     app.include_router(openmetrics.router)
     app.include_router(ingest.router)
     app.include_router(models.router)
+    app.include_router(model_resume.router)
     app.include_router(metrics.router)
     app.include_router(refresh.router)
     app.include_router(webhooks.router)

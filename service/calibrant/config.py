@@ -109,6 +109,20 @@ class Settings(BaseSettings):
         description="A refresh job whose runner wrote no heartbeat for this long (its process died) "
         "is marked abandoned, and the next POST /v1/refresh starts a new one. The runner beats every second.",
     )
+    job_retry_base_seconds: float = Field(
+        60.0, ge=1, le=86_400,
+        description="After a job fails on one model, how long before it tries that model again; doubles "
+        "per failed attempt (the other models go on meanwhile).",
+    )
+    job_retry_max_seconds: float = Field(
+        3600.0, ge=1, le=7 * 86_400,
+        description="Longest wait between two attempts of a job on a failing model.",
+    )
+    job_quarantine_after: int = Field(
+        6, ge=1, le=1000,
+        description="Failed attempts of a job on one model after which the model is quarantined: the job "
+        "skips it until an admin resumes it (POST /v1/models/{model}/resume).",
+    )
     webhook_allow_private: bool = Field(
         False,
         description="Permit webhook targets on private and loopback addresses (never link-local "

@@ -17,9 +17,10 @@ from typing import Protocol, TypedDict
 from calibrant.alarms import jobs as alarm_jobs
 from calibrant.clock import Clock
 from calibrant.config import Settings
-from calibrant.notify.jobs import deliver_due
+from calibrant.models.isolation import Backoff, ModelGuard
+from calibrant.notify import jobs as notify_jobs
 from calibrant.notify.senders import Sender, sender_from_settings
-from calibrant.rollup.refresh import refresh_dirty
+from calibrant.rollup import refresh
 from calibrant.store.dirty import BucketKey
 from calibrant.store.engine import make_session_factory
 from calibrant.store.unit import Engine
@@ -65,24 +66,36 @@ class Job:
     run: Callable[[JobContext], JobFigures]
 
 
+def _guard(ctx: JobContext, job: str) -> ModelGuard:
+    """Per-model isolation for one run of ``job`` (``models.isolation``), backoff from the settings."""
+    return ModelGuard(ctx.engine, ctx.clock, job, Backoff.from_settings(ctx.settings))
+
+
 def _refresh(ctx: JobContext) -> JobFigures:
+    guard = _guard(ctx, refresh.JOB_NAME)
     on_buckets = ctx.progress.buckets_done if ctx.progress is not None else None
-    return refresh_dirty(ctx.engine, ctx.clock, worker=worker_name(), on_buckets=on_buckets).as_dict()
+    return refresh.refresh_dirty(ctx.engine, ctx.clock, worker=worker_name(), guard=guard,
+                                 on_buckets=on_buckets).as_dict()
+
+
+def _alarms(ctx: JobContext) -> JobFigures:
+    return alarm_jobs.run(ctx.engine, ctx.clock, _guard(ctx, alarm_jobs.JOB_NAME))
 
 
 def _deliver(ctx: JobContext) -> JobFigures:
     sender = ctx.webhook_sender or sender_from_settings(
         ctx.settings.webhook_allow_private, ctx.settings.webhook_sender
     )
-    return deliver_due(make_session_factory(ctx.engine), ctx.clock, ctx.settings, sender).as_dict()
+    return notify_jobs.deliver_due(make_session_factory(ctx.engine), ctx.clock, ctx.settings, sender,
+                                   guard=_guard(ctx, notify_jobs.JOB_NAME)).as_dict()
 
 
 # Order matters within a round: summaries first, then what reads them, delivery last,
 # so one round takes an ingest all the way to a webhook.
 JOBS: tuple[Job, ...] = (
-    Job("refresh", _refresh),
-    Job("alarms", lambda ctx: alarm_jobs.run(ctx.engine, ctx.clock)),
-    Job("deliver_webhooks", _deliver),
+    Job(refresh.JOB_NAME, _refresh),
+    Job(alarm_jobs.JOB_NAME, _alarms),
+    Job(notify_jobs.JOB_NAME, _deliver),
 )
 
 

@@ -1,13 +1,10 @@
 """A label corrected after a chart consumed its case is never fed to the chart again.
 
-Without an outcome horizon a case is mature once both its score and its
-outcome are known, so a correction carrying a later ``observed_at`` would put
-the case *ahead* of the stream's watermark a second time. The chart's
-processing order is defined once per case (docs/methods.md §18: order of maturity,
-reproducible), so the correction must be treated like any outcome that
-arrives behind the watermark: counted as skipped-late, not consumed twice.
-With a horizon the case's maturity never depends on its label, which the
-second test pins as the reference behaviour.
+The chart's processing order is defined once per case (docs/methods.md §18: order of
+maturity, reproducible): the end of its scored hour + H + L, or + L without a horizon
+(then read once its age passes the measured p95 delay, docs/methods.md §23). A
+correction, whatever its ``observed_at``, arrives behind the stream's watermark and is
+counted as skipped-late, not consumed twice — with a horizon and without one.
 """
 
 from __future__ import annotations
@@ -88,9 +85,10 @@ def test_label_corrected_before_the_chart_saw_it_is_fed_once(db: Database) -> No
 
 
 def test_label_corrected_inside_the_lag_before_the_chart_saw_it_is_fed_once(db: Database) -> None:
-    # No horizon, lag L = 1 day: a case is mature once its first label's observation is L
-    # old. The corrections below are observed within the last L days when the chart first
-    # runs; the cases matured long before (their first labels), so they are fed, once.
+    # No horizon, lag L = 1 day: a case matures L after its scored hour and is read once its
+    # age also passes the p95 delay (6 h here). The corrections below are observed within the
+    # last L days when the chart first runs; the cases matured long before, so each is fed
+    # once, with its corrected label.
     clock = FixedClock(T0)
     client = make_client(db, clock=clock)
     setup_model(client, "lagged", keep=CHARTS, chart_params=SMALL_DESIGN, outcome_horizon_days=None,

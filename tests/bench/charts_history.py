@@ -35,7 +35,7 @@ from calibrant.alarms import jobs, service
 from calibrant.config import Settings
 from calibrant.store.alarm_tables import AlarmRule, ChartStream
 from calibrant.store.engine import make_engine, make_session_factory
-from calibrant.store.mature_cases import latest_maturity, mature_cases
+from calibrant.store.mature_cases import mature_cases
 from calibrant.store.tables import Model
 
 CHARTS = ("calibration-chart-upper", "calibration-chart-lower")
@@ -78,7 +78,7 @@ def _one_read(url: str, out: Any) -> None:
     with make_session_factory(engine)() as session:
         model = session.scalars(sa.select(Model)).one()
         cases = mature_cases(session.connection(), model, VERSION, after=None,
-                             until=latest_maturity(model, NOW))
+                             until=NOW)
     out.put({"seconds": time.perf_counter() - t, "cases": len(cases), "peak_mib": _rss_mib() - before})
     engine.dispose()
 

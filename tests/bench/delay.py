@@ -35,6 +35,21 @@ with 10 % late events and (ii) a model without horizon whose events report after
 Gamma(2, 2) days and non-events after Gamma(3, 3.5) (means 4 and 10.5 days: the
 missing outcomes of a recent week are mostly non-events). Goal: error ≤ 0.10.
 
+C. Chart false alarms without a horizon (issue 15, sixth session). The model of B(ii):
+explicit outcomes, events reported after Gamma(2, 2) days and non-events after
+Gamma(3, 3.5), Beta(2,8) risks, calibrated. Three ways to read a case:
+
+* at arrival (the code before this change): every case is read when its label
+  arrives, fed p. All labels are read, so the stream read is the calibrated stream
+  itself (the order by arrival is not simulated: the cases are exchangeable);
+* at p95, p as is: a case is read once its age passes the measured p95 delay
+  (``complete_after``, plus up to one hour), only if labeled by then, fed p;
+* at p95, adjusted (this code): the same cases, fed the risk given a label by the
+  case's age, p F̂₁ / (p F̂₁ + (1 − p) F̂₀) (``alarms.charts.Reading.risks``), F̂₁ and
+  F̂₀ measured from 26 weeks of history.
+
+Printed as in A, signals per case read × ARL0.
+
 Recorded 2026-12-03 (the defaults: 10 seeds × 100,000 cases an arm; 103 s on 2 shared cores).
 False alarms × design, before → after:
 
@@ -47,6 +62,16 @@ Before, the lower chart raised 1.6-2.6 times its design and the upper chart saw 
 half of its expected signals (it reads missing events as fewer events than predicted); after,
 both are on design. Completeness of the 8 most recent weeks: max |estimate − truth| 0.008
 (implicit negatives, 10 % late; truths 0.45-1.00) and 0.005 (no horizon; truths 0.19-1.00).
+
+Recorded 2026-12-03, sixth session (same defaults; 25 s at load average 2-3), C: false alarms
+× design, at arrival / at p95 with p as is / at p95 adjusted:
+
+    lower chart   1.03   0.59   1.05
+    upper chart   1.06   1.63   1.08
+
+Read at the p95 age as they are, the labels lean towards events (non-events report later):
+the upper chart raised 1.63 × its design and the lower chart went half blind; fed the risk
+given a label by the age, both are on design again. A and B printed the figures above unchanged.
 """
 
 from __future__ import annotations
@@ -64,6 +89,7 @@ from calibrant.alarms.charts import Reading
 from calibrant.rollup.outcome_delay import MAX_DELAY_DAYS, OutcomeDelay, complete_after, completeness
 from calibrant.stats.cusum import LOWER_ODDS_RATIO, UPPER_ODDS_RATIO
 from calibrant.stats.outcome_delay import right_truncated_cdf
+from calibrant.store.mature_cases import HOUR
 from calibrant.store.tables import Model
 
 H, L = 14, 1
@@ -186,6 +212,59 @@ def weeks_error(rng: np.random.Generator, *, implicit: bool, late_share: float) 
     return out
 
 
+MODEL_NO_HORIZON = Model(outcome_horizon_days=None, outcome_lag_days=0, implicit_negatives=False)
+NO_HORIZON_ARMS = ("at arrival", "at p95, p as is", "at p95, adjusted")
+
+
+def class_delays(rng: np.random.Generator, event: np.ndarray) -> np.ndarray:
+    """Events after Gamma(2, 2) days, non-events after Gamma(3, 3.5): non-events report later."""
+    return np.where(event, rng.gamma(2.0, 2.0, event.size), rng.gamma(3.0, 3.5, event.size))
+
+
+def measured_no_horizon(rng: np.random.Generator) -> OutcomeDelay:
+    """What the alarms job would store for explicit outcomes: F̂ of all reports, of events, of non-events."""
+    n = WEEKLY * HISTORY_WEEKS
+    age = rng.uniform(0, 7 * HISTORY_WEEKS, n)
+    event = rng.random(n) < rng.beta(2, 8, n)
+    delay = class_delays(rng, event)
+    seen = delay <= age
+    dists = [right_truncated_cdf(delay[m], age[m], max_days=MAX_DELAY_DAYS)
+             for m in (seen, seen & event, seen & ~event)]
+    assert all(d is not None for d in dists)
+    return OutcomeDelay(NOW, dists[0], dists[1], None, 0, [], non_events=dists[2])  # type: ignore[arg-type]
+
+
+def chart_ratio_no_horizon(r_a: float, arm: str, seeds: int, cases: int, seed: int) -> float:
+    """Signals × ARL0 / cases read, over all seeds, for one of ``NO_HORIZON_ARMS``."""
+    signals, read = 0, 0
+    h: float | None = None
+    for k in range(seeds):
+        rng = np.random.default_rng([seed, k, 3])
+        p = rng.beta(2, 8, cases)
+        y = rng.random(cases) < p
+        d = class_delays(rng, y)
+        if arm == NO_HORIZON_ARMS[0]:
+            risk, y_read = p, y.astype(np.float64)
+        else:
+            delay = measured_no_horizon(rng)
+            wait = complete_after(MODEL_NO_HORIZON, delay)
+            assert wait is not None
+            age = wait / timedelta(days=1) + rng.uniform(0, 1 / 24, cases)
+            labeled = d <= age
+            risk, y_read = p[labeled], y[labeled].astype(np.float64)
+            if arm == NO_HORIZON_ARMS[2]:
+                reading = Reading.of(MODEL_NO_HORIZON, delay)
+                assert reading.by_class is not None
+                # matured = end of the scored hour (L = 0); Reading takes the hour's middle
+                matured = [NOW - timedelta(days=float(a)) + HOUR / 2 for a in age[labeled]]
+                risk, _ = reading.risks(risk, matured, NOW)
+        if h is None:
+            h = design(risk[:5000], r_a, ARL0)
+        signals += count_signals(h, r_a, risk, y_read)
+        read += risk.size
+    return signals * ARL0 / read
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--small", action="store_true")
@@ -210,6 +289,11 @@ def main(argv: list[str] | None = None) -> None:
         print(f"  {label}: truth {', '.join(f'{t:.3f}' for _, t in pairs)}")
         print(f"  {'':>{len(label)}}  error {', '.join(f'{e:+.3f}' for e in errors)}  "
               f"(max |error| {max(abs(e) for e in errors):.3f})", flush=True)
+    print("C. no horizon, non-events report later: chart false alarms × design")
+    print(f"{'chart':>6} " + " ".join(f"{a:>18}" for a in NO_HORIZON_ARMS))
+    for name, r_a in (("lower", LOWER_ODDS_RATIO), ("upper", UPPER_ODDS_RATIO)):
+        ratios = [chart_ratio_no_horizon(r_a, arm, seeds, cases, args.seed) for arm in NO_HORIZON_ARMS]
+        print(f"{name:>6} " + " ".join(f"{r:>18.2f}" for r in ratios), flush=True)
     print(f"wall {time.perf_counter() - started:.1f} s")
 
 

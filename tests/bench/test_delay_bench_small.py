@@ -10,10 +10,20 @@ import math
 
 import numpy as np
 import pytest
-from tests.bench.delay import MODEL, H, L, chart_ratio, history, measured, weeks_error
+from tests.bench.delay import (
+    MODEL,
+    NO_HORIZON_ARMS,
+    H,
+    L,
+    chart_ratio,
+    chart_ratio_no_horizon,
+    history,
+    measured,
+    weeks_error,
+)
 
 from calibrant.rollup.outcome_delay import complete_after
-from calibrant.stats.cusum import LOWER_ODDS_RATIO
+from calibrant.stats.cusum import LOWER_ODDS_RATIO, UPPER_ODDS_RATIO
 
 SEED = 20261203
 
@@ -49,3 +59,13 @@ def test_the_bench_model_waits_past_horizon_and_lag_only_when_late_events_are_co
     late = measured(history(np.random.default_rng([SEED, 8]), 0.10))
     assert complete_after(MODEL, on_time).days == H + L  # type: ignore[union-attr]
     assert complete_after(MODEL, late).total_seconds() > (H + L) * 86400  # type: ignore[union-attr]
+
+
+def test_without_a_horizon_the_adjusted_upper_chart_stays_near_its_design() -> None:
+    # Non-events report later: read at the p95 age as they are, the labels lean towards events
+    # and the upper chart raises ~1.65 × its design (3 seeds × 20,000 cases, the bench's C);
+    # fed the risk given a label by the age, ~1.1 ×. 3 seeds × 20,000 cases: ~30 signals on design.
+    as_is = chart_ratio_no_horizon(UPPER_ODDS_RATIO, NO_HORIZON_ARMS[1], 3, 20_000, SEED)
+    adjusted = chart_ratio_no_horizon(UPPER_ODDS_RATIO, NO_HORIZON_ARMS[2], 3, 20_000, SEED)
+    assert as_is > 1.4
+    assert adjusted < 1.35

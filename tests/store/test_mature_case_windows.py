@@ -2,9 +2,9 @@
 maturity definition gives (docs/architecture.md, data semantics, as restated in ``store.mature_cases``).
 
 The expected list is computed by pandas from the rows the test posted: with a horizon H and
-lag L a case matures at the end of its scored hour + H + L (and must be ≤ now); without a
-horizon at max(scored_at, first label's observed_at), and must be ≤ now − L. Order is
-(maturity, case id). The data has a gap of weeks (a quiet stretch the reader skips in one
+lag L a case matures at the end of its scored hour + H + L, without a horizon at the end of
+its scored hour + L (whether or not a label came: an unlabeled case reads as −1), and must be
+≤ now. Order is (maturity, case id). The data has a gap of weeks (a quiet stretch the reader skips in one
 probe), an outcome observed before its prediction was scored, a corrected label, and
 windows of 6 hours so that many windows are read.
 """
@@ -60,13 +60,8 @@ def _post(client, model: str, rng: np.random.Generator) -> pd.DataFrame:
 
 def _expected(frame: pd.DataFrame, horizon: int | None, lag: int, after: datetime | None) -> list:
     f = frame.copy()
-    if horizon is not None:
-        f["matured"] = f.scored_at.dt.floor("h") + pd.Timedelta(hours=1) + pd.Timedelta(days=horizon + lag)
-        f = f[f.matured <= pd.Timestamp(NOW)]
-    else:
-        f = f[f.label >= 0]
-        f["matured"] = np.maximum(f.scored_at, f.observed_at)
-        f = f[f.matured <= pd.Timestamp(NOW - timedelta(days=lag))]
+    f["matured"] = f.scored_at.dt.floor("h") + pd.Timedelta(hours=1) + pd.Timedelta(days=(horizon or 0) + lag)
+    f = f[f.matured <= pd.Timestamp(NOW)]
     if after is not None:
         f = f[f.matured >= pd.Timestamp(after)]
     f = f.sort_values(["matured", "id"])

@@ -42,7 +42,12 @@ from calibrant.stats.cusum_design import arl0_for_false_alarm_budget, design_cus
 from calibrant.stats.outcome_delay import DelayDistribution
 from calibrant.store import alarm_repo, rollup_repo
 from calibrant.store.alarm_tables import Alarm, AlarmRule, ChartStream
-from calibrant.store.mature_cases import MatureCases, mature_case_windows, outcomes_received_since
+from calibrant.store.mature_cases import (
+    MatureCases,
+    mature_case_windows,
+    order_delay,
+    outcomes_received_since,
+)
 from calibrant.store.tables import Model
 from calibrant.store.unit import Session
 from calibrant.vocabulary.segments import ALL_SEGMENT
@@ -293,6 +298,8 @@ def run(session: Session, model: Model, now: datetime) -> ChartReport:
         # "all" stream yet (new rule, new version) reads the whole history.
         after = min(marks) if has_all and marks and None not in marks else None  # type: ignore[type-var]
         _count_late(session, model, version, streams, book, now)
+        if reading.wait is None:  # no horizon and no p95 delay yet: hold every stream where it is
+            continue
         for cases in mature_case_windows(conn, model, version, after=after, now=now, wait=reading.wait):
             _advance_window(session, version, cases, rules, streams, book, shares, now, report, reading)
     session.flush()
@@ -315,43 +322,65 @@ def _open_alarm(session: Session, model: Model, crossing: Crossing, now: datetim
 class Reading:
     """How a model's charts read cases given its measured outcome delay (docs/methods.md §23).
 
-    ``wait``: how long after maturity (H + L) a case is held back: until it is complete
-    (``outcome_delay.complete_after``). ``reported``: with implicit negatives, the share of
-    events already reported at a case's age, F(age); an unreported event reads as a 0, so
-    under calibration P(y read = 1) = p · F(age), and the chart is fed that risk
-    (reporting-delay adjustment, Lawless 1994). None: the risk is p as it stands.
+    ``wait``: how long after maturity (``store.mature_cases``) a case is held back: until it
+    is complete (``outcome_delay.extra_wait``). None — a model without a horizon whose p95
+    delay is not measured yet — means the charts read nothing: their watermarks stay, and
+    once the delay is measured they read from where they stopped, in order, skipping nothing.
+    ``reported``: with a horizon and implicit negatives, the share of events already reported
+    at a case's age, F(age); an unreported event reads as a 0, so under calibration
+    P(y read = 1) = p · F(age), and the chart is fed that risk (reporting-delay adjustment,
+    Lawless 1994). ``by_class``: without a horizon, the events' and the non-events' delay
+    distributions (F₁, F₀). The chart reads only the cases labeled by their age a, and by
+    Bayes' rule under calibration P(y = 1 | labeled by a) = p F₁(a) / (p F₁(a) + (1 − p) F₀(a)):
+    when non-events report more slowly, the labels read lean towards events, and the chart is
+    fed that risk. Used once each class has ``MIN_REPORTS_FOR_P95`` reports. Neither: the risk
+    is p as it stands. ``shown``: the distribution whose F at the cases' ages the evidence
+    reports (the reports' own without a horizon).
     """
 
     model: Model
-    wait: timedelta
+    wait: timedelta | None
     complete_after_days: float | None
     reported: DelayDistribution | None
+    shown: DelayDistribution | None = None
+    by_class: tuple[DelayDistribution, DelayDistribution] | None = None
 
     @classmethod
     def of(cls, model: Model, delay: outcome_delay.OutcomeDelay | None) -> Reading:
         complete = outcome_delay.complete_after(model, delay)
         events = delay.events if delay is not None else None
-        adjust = bool(model.implicit_negatives) and model.outcome_horizon_days is not None
+        has_horizon = model.outcome_horizon_days is not None
+        adjust = bool(model.implicit_negatives) and has_horizon
+        shown = events if adjust else (delay.reports if delay is not None and not has_horizon else None)
+        by_class = None
+        if not has_horizon and delay is not None and events is not None and delay.non_events is not None and (
+                min(events.n, delay.non_events.n) >= outcome_delay.MIN_REPORTS_FOR_P95):
+            by_class = (events, delay.non_events)
         return cls(model, outcome_delay.extra_wait(model, delay),
                    None if complete is None else complete / timedelta(days=1),
-                   events if adjust else None)
+                   events if adjust else None, shown, by_class)
 
     def risks(self, p: np.ndarray, matured: list[datetime], now: datetime) -> tuple[np.ndarray, np.ndarray]:
-        """(risk the chart is fed, F at each case's age): p · F(now − scored_at), or p and 1."""
-        if self.reported is None:
+        """(risk the chart is fed, F at each case's age): p · F(age), the labeled-by-age risk, or p."""
+        if self.shown is None:
             return p, np.ones(p.size)
-        wait = outcome_delay.horizon_and_lag(self.model)
-        assert wait is not None  # adjusting needs a horizon
-        # scored_at lies in the hour ending at matured_at − (H + L): its middle is close enough for F
-        age = (now.timestamp() - _epoch(matured)) / _DAY + wait / timedelta(days=1) + 1.0 / 48.0
-        f = self.reported.at(age)
-        return p * f, f
+        # scored_at lies in the hour ending at matured_at − D: its middle is close enough for F
+        age = ((now.timestamp() - _epoch(matured)) / _DAY + order_delay(self.model) / timedelta(days=1)
+               + 1.0 / 48.0)
+        f = self.shown.at(age)
+        if self.reported is not None:
+            return p * f, f
+        if self.by_class is not None:
+            seen_event, seen_non_event = p * self.by_class[0].at(age), (1.0 - p) * self.by_class[1].at(age)
+            total = seen_event + seen_non_event
+            return np.where(total > 0, seen_event / np.where(total > 0, total, 1.0), p), f
+        return p, f
 
     def evidence(self, f: np.ndarray) -> dict[str, Any]:
         return {"complete_after_days": self.complete_after_days,
-                "wait_after_maturity_days": self.wait / timedelta(days=1),
+                "wait_after_maturity_days": None if self.wait is None else self.wait / timedelta(days=1),
                 "mean_reported_share": float(f.mean()) if f.size else None,
-                "risk_adjusted_for_delay": self.reported is not None}
+                "risk_adjusted_for_delay": self.reported is not None or self.by_class is not None}
 
 
 def _advance_window(session: Session, version: str, cases: MatureCases,

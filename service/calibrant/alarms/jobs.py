@@ -13,11 +13,12 @@ from datetime import datetime
 
 from calibrant.alarms import budget, charts, feeds, kinds, restatements, service, windows
 from calibrant.clock import Clock
+from calibrant.models.isolation import ModelGuard
 from calibrant.rollup import outcome_delay
 from calibrant.store import alarm_repo
 from calibrant.store.engine import make_session_factory
 from calibrant.store.tables import Model
-from calibrant.store.unit import Engine, Session
+from calibrant.store.unit import Engine, Session, SessionFactory
 
 
 @dataclass
@@ -61,30 +62,47 @@ def evaluate_model(session: Session, model: Model, now: datetime, report: Evalua
     restatements.restate(session, model, now)
 
 
-def evaluate_all(engine: Engine, now: datetime) -> EvaluationReport:
+JOB_NAME = "alarms"
+
+
+def evaluate_all(engine: Engine, now: datetime, guard: ModelGuard | None = None) -> EvaluationReport:
+    """Every model in turn; one that raises is recorded and held back by ``guard``, the rest go on."""
     report = EvaluationReport()
     sessions = make_session_factory(engine)
     with sessions() as session:
         model_ids = [m.id for m in alarm_repo.all_models(session)]
     for model_id in model_ids:
-        with sessions() as session:
-            model = session.get(Model, model_id)
-            if model is None:
-                continue
-            service.ensure_defaults(session, model, now)
-            session.commit()
-            state = alarm_repo.model_state(session, model_id, lock=True)
-            if state is None:  # another process is evaluating this model
-                continue
-            evaluate_model(session, model, now, report)
-            state.evaluated_at = now
-            session.commit()
-            report.models += 1
+        if guard is None:
+            _evaluate_one(sessions, model_id, now, report)
+        elif guard.allows(model_id):
+            with guard.unit(model_id):
+                _evaluate_one(sessions, model_id, now, report)
     return report
 
 
-def run(engine: Engine, clock: Clock) -> dict[str, int]:
+def _evaluate_one(sessions: SessionFactory, model_id: int, now: datetime, report: EvaluationReport) -> None:
+    """One transaction for the model; its figures count only once it commits (a raise rolls back all)."""
+    own = EvaluationReport()
+    with sessions() as session:
+        model = session.get(Model, model_id)
+        if model is None:
+            return
+        service.ensure_defaults(session, model, now)
+        session.commit()
+        state = alarm_repo.model_state(session, model_id, lock=True)
+        if state is None:  # another process is evaluating this model
+            return
+        evaluate_model(session, model, now, own)
+        state.evaluated_at = now
+        session.commit()
+    own.models = 1
+    for name, value in own.as_dict().items():
+        setattr(report, name, getattr(report, name) + value)
+
+
+def run(engine: Engine, clock: Clock, guard: ModelGuard | None = None) -> dict[str, int]:
     """The ``alarms`` job of ``calibrant.jobs``. No model count: a round that only looked is idle."""
-    done = evaluate_all(engine, clock.now()).as_dict()
+    guard = guard or ModelGuard(engine, clock, JOB_NAME)
+    done = evaluate_all(engine, clock.now(), guard).as_dict()
     del done["models"]
     return done

@@ -1,13 +1,14 @@
-"""Restatements: a window alarm's period changed by outcomes reported after the alarm was raised.
+"""Restatements: an alarm's data changed by outcomes reported after the alarm was raised.
 
 The alarm's evidence is what the rule saw when it crossed and is never rewritten.
 When a later outcome changes the period (its hours were summarised again after
 the alarm's last look), the rule's kind judges the period again at the level it
 was judged at, and if the statistic or the case count moved, the alarm gains an
 entry: when, the new statistic, n and label completeness, and whether the
-period would still cross. Chart alarms rest on cases read in order and are not
-restated. Alarms opened more than ``outcome_delay.MAX_DELAY_DAYS`` ago are left
-alone: outcomes that late are outside the measured delay.
+period would still cross. A chart alarm is restated by ``chart_restatements``: the
+labels of the cases on its run that changed, and the statistic at the crossing again.
+Alarms opened more than ``outcome_delay.MAX_DELAY_DAYS`` ago are left alone: outcomes
+that late are outside the measured delay.
 """
 
 from __future__ import annotations
@@ -15,8 +16,8 @@ from __future__ import annotations
 from datetime import datetime, timedelta
 from typing import Any
 
-from calibrant.alarms import kinds, windows
-from calibrant.alarms.kinds.base import WindowKind
+from calibrant.alarms import chart_restatements, kinds, windows
+from calibrant.alarms.kinds.base import ChartKind, WindowKind
 from calibrant.clock import rfc3339
 from calibrant.rollup import outcome_delay, query
 from calibrant.rollup.periods import Period
@@ -31,20 +32,21 @@ def _instant(text: str) -> datetime:
 
 
 def restate(session: Session, model: Model, now: datetime) -> int:
-    """Add a restatement to each recent window alarm whose period changed; returns how many were added."""
+    """Add a restatement to each recent alarm whose data changed; returns how many were added."""
     added = 0
     conn = session.connection()
     delay = outcome_delay.stored(model)
     since = now - timedelta(days=outcome_delay.MAX_DELAY_DAYS)
     for alarm in alarm_repo.alarms_opened_since(session, model.id, since):
         evidence = alarm.evidence or {}
-        if "period_start" not in evidence:
-            continue  # not a window alarm
         rule = session.get(AlarmRule, alarm.rule_id)
         if rule is None:
             continue
         kind = kinds.spec(rule.kind)
-        if not isinstance(kind, WindowKind):
+        if isinstance(kind, ChartKind):
+            added += chart_restatements.restate(session, model, alarm, now)
+            continue
+        if "period_start" not in evidence or not isinstance(kind, WindowKind):
             continue
         history = list(alarm.restatements or [])
         last = history[-1] if history else evidence

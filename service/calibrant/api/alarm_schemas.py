@@ -90,8 +90,11 @@ class RuleList(BaseModel):
 
 class AlarmEvidence(BaseModel):
     """Why the rule crossed. statistic, interval and n are common to every kind; the others depend
-    on it (a window's period_start, period_end, granularity and detail; a chart's control_limit,
-    chart_path and design; starvation's checked_at). Times inside are RFC 3339 strings."""
+    on it (a window's period_start, period_end, granularity, detail and label_completeness; a
+    chart's control_limit, chart_path, design and label_completeness: complete_after_days, the
+    wait after maturity, the mean share of reports in at the ages of the cases read and whether
+    the risk was adjusted for the delay; starvation's checked_at). Times inside are RFC 3339
+    strings."""
 
     model_config = ConfigDict(extra="allow")
 
@@ -109,16 +112,37 @@ class AlarmResolution(BaseModel):
 
 
 class AlarmRestatement(BaseModel):
-    """The alarm's period judged again after later outcomes changed it; the evidence stays as raised."""
+    """The alarm's data judged again after later outcomes changed it; the evidence stays as raised.
+
+    A window alarm: its period judged again at the same level. A chart alarm: the cases on
+    its run (from the chart path's last point at S = 0 to the crossing case) whose label now
+    differs from the label known when the alarm opened, and the statistic at the crossing
+    restated with the chart's weights (docs/methods.md §23).
+    """
 
     at: Instant = Field(description="When the change was seen.")
-    checked_at: Instant = Field(description="When the period was last looked at again.")
+    checked_at: Instant = Field(description="When the alarm's data was last looked at again.")
     reason: str
-    statistic: float | None = Field(description="The statistic on the period's data now.")
-    n: int = Field(description="Cases it rests on now.")
-    label_completeness: float | None = Field(description="The period's label completeness now.")
-    still_crosses: bool | None = Field(description="Whether the period would still raise the alarm; "
+    statistic: float | None = Field(description="The statistic on the data now (a chart: S at the crossing).")
+    n: int = Field(description="Cases it rests on now (a chart: the evidence's n plus cases now labeled "
+                               "that the chart had passed over).")
+    label_completeness: float | None = Field(description="A window alarm: the period's label completeness "
+                                                         "now; null for a chart alarm.")
+    still_crosses: bool | None = Field(description="Whether the data would still raise the alarm; "
                                                    "null: too little data to judge.")
+    run_start: Instant | None = Field(None, description="Chart alarms: the hour the run starts (the "
+                                                        "path's last point at S = 0, or its first).")
+    run_truncated: bool | None = Field(None, description="Chart alarms: S stayed above 0 over the whole "
+                                                         "kept path, so the run is cut at its first point.")
+    changed_cases: int | None = Field(None, description="Chart alarms: cases on the run whose label changed "
+                                                        "since the alarm opened.")
+    late_labels: int | None = Field(None, description="Chart alarms: of those, cases without a label when "
+                                                      "the alarm opened (read as 0 under implicit negatives, "
+                                                      "passed over otherwise).")
+    corrected_labels: int | None = Field(None, description="Chart alarms: of those, cases whose label was "
+                                                           "corrected.")
+    events_added: int | None = Field(None, description="Chart alarms: events on the run now minus then "
+                                                       "(negative: fewer).")
 
 
 class AlarmOut(BaseModel):
@@ -141,8 +165,8 @@ class AlarmOut(BaseModel):
     )
     restatements: list[AlarmRestatement] = Field(
         default_factory=list,
-        description="Window alarms: each time outcomes reported later changed the alarm's period, "
-                    "oldest first (empty: unchanged). Chart alarms are never restated.",
+        description="Each time outcomes reported later changed the alarm's data (a window alarm's "
+                    "period, the labels on a chart alarm's run), oldest first (empty: unchanged).",
     )
 
 

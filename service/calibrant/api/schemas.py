@@ -12,6 +12,7 @@ from typing import Annotated, Any, ClassVar, Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 from calibrant.api.instant import Instant
+from calibrant.api.job_failure_schemas import JobFailureOut
 from calibrant.api.sparse import SparseModel
 from calibrant.api.webhook_schemas import OutboxHealth
 
@@ -128,7 +129,8 @@ class OutcomeDelayOut(BaseModel):
     complete_after_days: float | None = Field(
         description="Age at which the rules treat a case as complete: horizon + lag, or the p95 delay "
                     "when it is longer and the late-event share exceeds 2 %; without a horizon the "
-                    "p95 delay."
+                    "p95 delay, null until it rests on 20 reports (the model's charts then read "
+                    "nothing yet). Charts read a case only once it is this old."
     )
     by_week: list[DelayWeek] = Field(description="The last 12 weeks of scoring, oldest first.")
 
@@ -150,6 +152,10 @@ class ModelOut(BaseModel):
     outcome_delay: OutcomeDelayOut | None = Field(
         None, description="The measured outcome delay; null until an outcome was reported and the "
                           "alarms job has measured it (at most hourly)."
+    )
+    job_failures: list[JobFailureOut] | None = Field(
+        None, description="Jobs that failed on this model, retrying with backoff or quarantined (GET of one "
+        "model; null in the list). Empty: every job processes the model."
     )
 
 
@@ -192,10 +198,18 @@ class HealthDetail(SparseModel):
 
 
 class Health(BaseModel):
-    status: Literal["ok", "degraded"]
+    status: Literal["ok", "degraded", "down"] = Field(
+        description="ok (200): all is well. degraded (200): the service answers and stores data, but a "
+        "background job failed on some models (`job_failures` names them); the other models are processed "
+        "as usual. down (503, Retry-After): the database cannot be reached."
+    )
     database: Literal["ok", "unreachable"]
     failed: list[str] = Field(
-        default_factory=list, description="The checks that failed, by name (database); empty when none."
+        default_factory=list,
+        description="The checks that failed, by name (database, jobs); empty when none.",
+    )
+    job_failures: list[JobFailureOut] = Field(
+        default_factory=list, description="Each model a job failed on, with the job and the error."
     )
     detail: HealthDetail = Field(default_factory=HealthDetail)
     outbox: OutboxHealth | None = Field(None, description="Webhook deliveries waiting, failing targets.")

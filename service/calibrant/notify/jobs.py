@@ -16,6 +16,7 @@ from datetime import timedelta
 
 from calibrant.clock import Clock
 from calibrant.config import Settings
+from calibrant.models.isolation import ModelGuard
 from calibrant.notify import outbox, signing
 from calibrant.notify.senders import OutgoingRequest, Sender, SendResult
 from calibrant.store import outbox_repo, webhook_targets_repo
@@ -25,6 +26,7 @@ from calibrant.store.webhook_tables import DELIVERED, FAILED
 
 log = logging.getLogger("calibrant.notify")
 
+JOB_NAME = "deliver_webhooks"
 MAX_BATCHES = 1000  # bounds one run; a backlog beyond batch size × this waits for the next run
 
 
@@ -57,12 +59,14 @@ def deliver_due(
     rng: random.Random | None = None,
     only_ids: list[int] | None = None,
     max_batches: int = MAX_BATCHES,
+    guard: ModelGuard | None = None,
 ) -> DeliveryStats:
     """Attempt every delivery that is due now, batch by batch, until none is left.
 
     ``only_ids`` limits the run to some deliveries (an immediate ping). A
     delivery that fails is rescheduled in the future, so it is not attempted
-    twice in one run.
+    twice in one run. With a ``guard``, a delivery whose handling raises (not a failed
+    send, which is an ordinary retry) holds back its event's model, not the other models.
     """
     run = _Run(
         session_factory=session_factory,
@@ -82,13 +86,18 @@ def deliver_due(
                 limit=settings.webhook_batch_size,
                 lease=run.lease,
                 only_ids=only_ids,
+                skip_models=guard.held_back() if guard else (),
             )
             work = outbox_repo.claimed_work(session, ids)
             session.commit()
         if not work:
             break
         for delivery in work:
-            run.attempt(delivery)
+            if guard is None or delivery.model_id is None:
+                run.attempt(delivery)
+            elif guard.allows(delivery.model_id):
+                with guard.unit(delivery.model_id):
+                    run.attempt(delivery)
     return run.stats
 
 

@@ -10,7 +10,8 @@ pull the estimate short. Which reports count:
 * with implicit negatives, only events report (a non-event never does), so the
   distribution is that of the events' delays;
 * otherwise every label reports, and the distribution is of all of them; the
-  events' own distribution is kept beside it for the late-event share.
+  events' own distribution is kept beside it for the late-event share, and the
+  non-events' for the charts of a model without a horizon (``charts.Reading``).
 
 An event counts as one only if it happened inside the horizon: an outcome of 1
 whose ``occurred_at`` lies after scored_at + H is a 0 (``counts_as_event``). An
@@ -41,6 +42,9 @@ from calibrant.store.unit import Connection
 
 MAX_DELAY_DAYS = 180  # the look-back: delays longer than this are not measured
 LATE_SHARE_TO_WAIT = 0.02  # above this late-event share the rules wait for the p95 delay
+# Without a horizon the wait is the p95 delay itself, trusted from this many reports: the
+# smallest sample whose 95 % point lies inside the observations, n ≥ 1 / (1 − 0.95) (ours).
+MIN_REPORTS_FOR_P95 = 20
 PROVISIONAL_BELOW = 0.95  # a period whose label completeness is below this is provisional
 REMEASURE_AFTER = timedelta(hours=1)  # the alarms job measures a model at most this often
 BY_WEEK_WEEKS = 12
@@ -57,6 +61,7 @@ class OutcomeDelay:
     late_event_share: float | None  # None without a horizon, or without events
     late_events: int  # events seen reported after H + L in the look-back
     by_week: list[dict[str, Any]]
+    non_events: DelayDistribution | None = None  # explicit outcomes only; None when none reported
 
     def quantiles_days(self) -> dict[str, float]:
         return {name: round(self.reports.quantile(q), 4) for name, q in QUANTILES.items()}
@@ -69,6 +74,7 @@ class OutcomeDelay:
             "late_event_share": self.late_event_share,
             "late_events": self.late_events,
             "by_week": self.by_week,
+            "non_events": None if self.non_events is None else _dist_json(self.non_events),
         }
 
     @classmethod
@@ -80,6 +86,7 @@ class OutcomeDelay:
             late_event_share=doc["late_event_share"],
             late_events=int(doc["late_events"]),
             by_week=list(doc["by_week"]),
+            non_events=None if doc.get("non_events") is None else _dist_from(doc["non_events"]),
         )
 
 
@@ -120,6 +127,9 @@ def measure(conn: Connection, model: Model, now: datetime) -> OutcomeDelay | Non
     if reports is None:
         return None
     events = right_truncated_cdf(delay[event], waited[event], max_days=MAX_DELAY_DAYS)
+    non_events = None
+    if not model.implicit_negatives:
+        non_events = right_truncated_cdf(delay[~event], waited[~event], max_days=MAX_DELAY_DAYS)
     wait = horizon_and_lag(model)
     late = np.zeros(event.size, dtype=bool)
     share = None
@@ -128,7 +138,7 @@ def measure(conn: Connection, model: Model, now: datetime) -> OutcomeDelay | Non
         if events is not None:
             share = round(float(1.0 - events.at(wait / timedelta(days=1))), 5)
     return OutcomeDelay(now, reports, events, share, int(late.sum()),
-                        _by_week(rows.scored, delay, event, late, now))
+                        _by_week(rows.scored, delay, event, late, now), non_events)
 
 
 def _by_week(scored: np.ndarray, delay: np.ndarray, event: np.ndarray, late: np.ndarray,
@@ -169,25 +179,31 @@ def complete_after(model: Model, delay: OutcomeDelay | None) -> timedelta | None
     """The age at which a case is complete for the rules.
 
     With a horizon: H + L, or max(H + L, p95 delay) when the late-event share
-    exceeds ``LATE_SHARE_TO_WAIT``. Without one: the p95 delay (None until measured).
+    exceeds ``LATE_SHARE_TO_WAIT``. Without one: the p95 delay, None until it is measured
+    from at least ``MIN_REPORTS_FOR_P95`` reported cases.
     """
     wait = horizon_and_lag(model)
     p95 = None if delay is None else timedelta(days=delay.reports.quantile(0.95))
     if wait is None:
-        return p95
+        return p95 if delay is not None and delay.reports.n >= MIN_REPORTS_FOR_P95 else None
     share = None if delay is None else delay.late_event_share
     if p95 is not None and share is not None and share > LATE_SHARE_TO_WAIT:
         return max(wait, p95)
     return wait
 
 
-def extra_wait(model: Model, delay: OutcomeDelay | None) -> timedelta:
-    """How much longer than H + L the charts of a model with a horizon wait before reading a case."""
-    wait = horizon_and_lag(model)
+def extra_wait(model: Model, delay: OutcomeDelay | None) -> timedelta | None:
+    """How long after its maturity (``store.mature_cases``) a chart reads a case: until it is complete.
+
+    Maturity is the end of the scored hour + H + L, or + L without a horizon, so the wait is
+    ``complete_after`` − (H + L), or max(p95 − L, 0) without a horizon. None: no horizon and
+    the p95 delay not measured yet (the charts read nothing until it is).
+    """
     complete = complete_after(model, delay)
-    if wait is None or complete is None:
-        return timedelta(0)
-    return complete - wait
+    if complete is None:
+        return None
+    order = timedelta(days=(model.outcome_horizon_days or 0) + (model.outcome_lag_days or 0))
+    return max(complete - order, timedelta(0))
 
 
 def completeness(delay: DelayDistribution, weights: dict[datetime, float], now: datetime) -> float | None:

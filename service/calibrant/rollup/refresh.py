@@ -17,16 +17,19 @@ the hours of a dirty day (``rollup.query.load_days``).
 from __future__ import annotations
 
 from collections import defaultdict
-from collections.abc import Callable
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import timedelta
+from typing import Any
 
 from calibrant.clock import Clock
+from calibrant.models.isolation import ModelGuard
 from calibrant.rollup.compute import SegmentBook, summarise_bucket
 from calibrant.stats.summary import Summary
 from calibrant.store import dirty, rollup_repo
 from calibrant.store.dirty import BucketKey, DayKey, day_of
-from calibrant.store.unit import Engine, reading
+from calibrant.store.unit import DatabaseError, Engine, is_unavailable, reading
 
 JOB_NAME = "refresh"
 
@@ -67,6 +70,7 @@ def refresh_dirty(
     chunk_rows: int = 50_000,
     lease: timedelta = timedelta(minutes=10),
     max_passes: int = 1000,
+    guard: ModelGuard | None = None,
     on_buckets: Callable[[list[BucketKey]], None] | None = None,
 ) -> RefreshReport:
     """Recompute dirty buckets and merge dirty days until none is left that this worker can claim.
@@ -75,26 +79,33 @@ def refresh_dirty(
     of three per bucket: on PostgreSQL the commits and round trips, not the summing, were
     most of a refresh (10.8 ms a bucket, 45 of 94 s waiting on the server, measured).
     ``on_buckets`` hears the keys of each group once it is stored (a job's progress).
+
+    A model whose buckets or days raise is recorded and held back by ``guard``
+    (``models.isolation``); the other models are refreshed as if it were not there.
     """
+    guard = guard or ModelGuard(engine, clock, JOB_NAME)
     report = RefreshReport(worker)
     started = clock.now()
     for _ in range(max_passes):
         with reading(engine) as conn:
-            keys = dirty.candidates(conn, clock.now(), batch)
+            keys = dirty.candidates(conn, clock.now(), batch, skip_models=guard.held_back())
         progressed = False
         busy_before = report.busy
         for i in range(0, len(keys), group):
             done_before = len(report.recomputed)
-            progressed |= _recompute_group(engine, clock, keys[i:i + group], worker, chunk_rows, lease,
-                                           report)
+            progressed |= _recompute_guarded(engine, clock, keys[i:i + group], worker, chunk_rows, lease,
+                                             report, guard)
             if on_buckets is not None and len(report.recomputed) > done_before:
                 on_buckets([key for key, _ in report.recomputed[done_before:]])
         with reading(engine) as conn:
             # A day is merged once its hours are current, so a full refresh merges it once.
-            days = [d for d in dirty.candidates(conn, clock.now(), batch, dirty.DAYS)
+            days = [d for d in dirty.candidates(conn, clock.now(), batch, dirty.DAYS,
+                                                skip_models=guard.held_back())
                     if not dirty.hours_pending(conn, d)]
         for day in days:
-            progressed |= _merge_day(engine, clock, day, worker, lease, report)
+            if guard.allows(day.model_id):
+                with guard.unit(day.model_id):
+                    progressed |= _merge_day(engine, clock, day, worker, lease, report)
         # Everything this pass looked at was taken by another worker: the next candidates
         # query skips what is claimed, so look again rather than stop.
         if not progressed and not (keys and report.busy > busy_before):
@@ -104,6 +115,40 @@ def refresh_dirty(
             conn, JOB_NAME, worker, started, clock.now(), report.buckets, report.rows_read
         )
     return report
+
+
+def _recompute_guarded(
+    engine: Engine,
+    clock: Clock,
+    keys: list[BucketKey],
+    worker: str,
+    chunk_rows: int,
+    lease: timedelta,
+    report: RefreshReport,
+    guard: ModelGuard,
+) -> bool:
+    """``_recompute_group`` with the failure of one model kept from the others.
+
+    The group is tried whole first (models share its transactions, the fast path); if it
+    raises, it is redone model by model under the guard, so only the failing model is held back.
+    """
+    keys = [k for k in keys if guard.allows(k.model_id)]
+    models = sorted({k.model_id for k in keys})
+    if len(models) > 1:
+        try:
+            progressed = _recompute_group(engine, clock, keys, worker, chunk_rows, lease, report)
+        except Exception as exc:
+            if is_unavailable(exc):
+                raise
+        else:
+            guard.succeeded(*models)
+            return progressed
+    progressed = False
+    for model_id in models:
+        with guard.unit(model_id):
+            progressed |= _recompute_group(engine, clock, [k for k in keys if k.model_id == model_id],
+                                           worker, chunk_rows, lease, report)
+    return progressed
 
 
 def _recompute_group(
@@ -121,10 +166,11 @@ def _recompute_group(
     report.busy += len(keys) - len(claims)
     if not claims:
         return False
-    computed = _read_buckets(engine, [c.key for c in claims], chunk_rows)
-    # No transaction is open here, so ingest (and other refreshers) can write between the
-    # read and the write; the write transaction holds SQLite's write lock only to store.
-    clean = _write_buckets(engine, clock, list(zip(claims, computed, strict=True)))
+    with _released_on_error(engine, claims):
+        computed = _read_buckets(engine, [c.key for c in claims], chunk_rows)
+        # No transaction is open here, so ingest (and other refreshers) can write between the
+        # read and the write; the write transaction holds SQLite's write lock only to store.
+        clean = _write_buckets(engine, clock, list(zip(claims, computed, strict=True)))
     for claim, done, ok in zip(claims, computed, clean, strict=True):
         report.recomputed.append((claim.key, claim.generation))
         report.rows_read += done.n_rows
@@ -194,16 +240,17 @@ def _merge_day(
     claim = _claim(engine, clock, key, worker, lease, report)
     if claim is None:
         return False
-    with reading(engine) as conn:
-        stored = rollup_repo.hours_of_day(conn, key)
-    by_segment: dict[tuple[str, str], list[Summary]] = defaultdict(list)
-    for seg_key, seg_value, payload in stored:
-        by_segment[(seg_key, seg_value)].append(Summary.from_bytes(payload))
-    merged = {seg: Summary.merge_many(parts) for seg, parts in by_segment.items()}
-    with engine.begin() as conn:
-        rollup_repo.replace_summaries(conn, key, _encoded(merged), clock.now())
-        if not dirty.finish(conn, claim):
-            report.days_requeued += 1
+    with _released_on_error(engine, [claim]):
+        with reading(engine) as conn:
+            stored = rollup_repo.hours_of_day(conn, key)
+        by_segment: dict[tuple[str, str], list[Summary]] = defaultdict(list)
+        for seg_key, seg_value, payload in stored:
+            by_segment[(seg_key, seg_value)].append(Summary.from_bytes(payload))
+        merged = {seg: Summary.merge_many(parts) for seg, parts in by_segment.items()}
+        with engine.begin() as conn:
+            rollup_repo.replace_summaries(conn, key, _encoded(merged), clock.now())
+            if not dirty.finish(conn, claim):
+                report.days_requeued += 1
     report.merged_days.append((key, claim.generation))
     return True
 
@@ -217,6 +264,20 @@ def _claim(
     if claim is None:
         report.busy += 1
     return claim
+
+
+@contextmanager
+def _released_on_error(engine: Engine, claims: Sequence[dirty.Claim[Any]]) -> Iterator[None]:
+    """Give the claims back if the work raises, so a retry need not wait for the lease to lapse."""
+    try:
+        yield
+    except BaseException:
+        try:
+            with engine.begin() as conn:
+                dirty.release(conn, claims)
+        except DatabaseError:  # the database itself failed: the leases lapse instead
+            pass
+        raise
 
 
 def _encoded(summaries: dict[tuple[str, str], Summary]) -> dict[tuple[str, str], tuple[int, bytes]]:

@@ -17,9 +17,11 @@ from datetime import datetime, timedelta
 from typing import Any
 
 from calibrant.clock import rfc3339
+from calibrant.models import isolation
 from calibrant.rollup import metrics_service
 from calibrant.rollup.periods import Granularity, Period, periods
 from calibrant.store import alarm_repo, models_repo, outbox_repo, rollup_repo, scrape_repo
+from calibrant.store.job_failures_repo import FailureRecord
 from calibrant.store.outbox_repo import Backlog
 from calibrant.store.scrape_repo import RollupBacklog
 from calibrant.store.tables import Model
@@ -55,6 +57,7 @@ class ScrapeFigures:
     outbox: Backlog
     rollup: RollupBacklog
     last_refresh_at: datetime | None
+    job_failures: list[FailureRecord] = field(default_factory=list)  # models a job holds back
 
 
 def latest_complete_period(now: datetime, granularity: Granularity) -> Period:
@@ -102,4 +105,5 @@ def gather(session: Session, *, now: datetime, granularity: Granularity, cap: in
         now=now, granularity=granularity, models=models,
         outbox=outbox_repo.backlog(session, now), rollup=scrape_repo.rollup_backlog(conn),
         last_refresh_at=rollup_repo.last_job_run(conn, "refresh"),
+        job_failures=isolation.failures(session),
     )

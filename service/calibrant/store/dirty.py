@@ -9,7 +9,7 @@ so the protocol reads in one place; the key type says which table a call means.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Collection, Iterable
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any, Generic, TypeVar, cast, overload
@@ -116,19 +116,26 @@ def mark_whole_model(conn: Connection, model_id: int, now: datetime) -> int:
 
 
 @overload
-def candidates(conn: Connection, now: datetime, limit: int) -> list[BucketKey]: ...
+def candidates(conn: Connection, now: datetime, limit: int, *,
+               skip_models: Collection[int] = ...) -> list[BucketKey]: ...
 @overload
-def candidates(conn: Connection, now: datetime, limit: int, tier: Tier[KeyT]) -> list[KeyT]: ...
-def candidates(conn: Connection, now: datetime, limit: int, tier: Tier[Any] = HOURS) -> list[Any]:
-    """Unclaimed (or lease-expired) marks of ``tier``, oldest first."""
+def candidates(conn: Connection, now: datetime, limit: int, tier: Tier[KeyT], *,
+               skip_models: Collection[int] = ...) -> list[KeyT]: ...
+def candidates(conn: Connection, now: datetime, limit: int, tier: Tier[Any] = HOURS, *,
+               skip_models: Collection[int] = ()) -> list[Any]:
+    """Unclaimed (or lease-expired) marks of ``tier``, oldest first.
+
+    ``skip_models`` are models the refresh holds back (``models.isolation``): leaving them
+    out here keeps their marks from filling every batch while the others wait.
+    """
     t = tier.table
     when = t.c[tier.time_column]
-    rows = conn.execute(
-        select(t.c.model_id, t.c.version, when)
-        .where(or_(t.c.claimed_until.is_(None), t.c.claimed_until < now))
-        .order_by(when, t.c.model_id, t.c.version)
-        .limit(limit)
+    query = select(t.c.model_id, t.c.version, when).where(
+        or_(t.c.claimed_until.is_(None), t.c.claimed_until < now)
     )
+    if skip_models:
+        query = query.where(t.c.model_id.not_in(sorted(skip_models)))
+    rows = conn.execute(query.order_by(when, t.c.model_id, t.c.version).limit(limit))
     return [tier.key_type(m, v, h) for m, v, h in rows]
 
 
@@ -182,6 +189,17 @@ def finish(conn: Connection, claim_: Claim[KeyT]) -> bool:
         .values(claimed_by=None, claimed_until=None)
     )
     return False
+
+
+def release(conn: Connection, claims: Iterable[Claim[Any]]) -> None:
+    """Give claims back without clearing their marks (the work failed): the next pass may take them."""
+    for claim_ in claims:
+        t = _tier(claim_.key).table
+        conn.execute(
+            update(t)
+            .where(_key_clause(claim_.key), t.c.claimed_by == claim_.worker)
+            .values(claimed_by=None, claimed_until=None)
+        )
 
 
 def backlog(conn: Connection, tier: Tier[Any] = HOURS) -> int:

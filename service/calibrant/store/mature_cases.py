@@ -1,18 +1,16 @@
 """The cases charts consume, in maturity order, read in bounded windows of maturity time.
 
 Maturity time of a case (the charts' processing order is (matured_at, case_id)):
-
-* with an outcome horizon H and lag L: the end of its scored hour + H + L, the
-  moment its bucket becomes mature (docs/architecture.md, data semantics), whether or not a label came;
-* without a horizon: the later of ``scored_at`` and the ``observed_at`` of the
-  case's first label (it is mature once both are known), no earlier than L days
-  before now. A correction keeps that time (``Outcome.first_observed_at``), so a
-  case never moves in the order: a correction behind a watermark is late.
+the end of its scored hour + D, where D is H + L with an outcome horizon H and lag L
+(the moment its bucket becomes mature, docs/architecture.md, data semantics), and L
+alone without a horizon. It depends only on when the case was scored, never on when
+its label came, so a case never moves in the order: an outcome or a correction that
+arrives after the watermark passed its case is late. Cohorts by scoring time, not by
+report time: ordering by report would put quick outcomes first (docs/methods.md §23).
 
 A new rule on a long history would otherwise read every case at once; the
-windows keep memory to one window's cases, and every query is a range on an
-index: (model, version, scored_at) of predictions, (model, first_observed_at)
-of outcomes.
+windows keep memory to one window's cases, and every query is a range on the
+index (model, version, scored_at) of predictions.
 """
 
 from __future__ import annotations
@@ -24,8 +22,7 @@ from typing import Any
 
 import numpy as np
 import orjson
-from sqlalchemy import ColumnElement, Connection, and_, func, select
-from sqlalchemy.orm import QueryableAttribute
+from sqlalchemy import Connection, and_, func, select
 
 from calibrant.store.event_label import counted_label
 from calibrant.store.tables import Model, Outcome, Prediction
@@ -60,27 +57,18 @@ class MatureCases:
                            self.tags[i:])
 
 
-def _delay(model: Model) -> timedelta | None:
-    if model.outcome_horizon_days is None:
-        return None
-    return timedelta(days=model.outcome_horizon_days + (model.outcome_lag_days or 0))
+def order_delay(model: Model) -> timedelta:
+    """D: maturity is the end of the scored hour + D (H + L with a horizon, L without)."""
+    return timedelta(days=(model.outcome_horizon_days or 0) + (model.outcome_lag_days or 0))
 
 
-def maturity(model: Model, scored_at: datetime, first_observed: datetime | None) -> datetime | None:
-    delay = _delay(model)
-    if delay is not None:
-        return floor_hour(scored_at) + HOUR + delay
-    return None if first_observed is None else max(scored_at, first_observed)
-
-
-def latest_maturity(model: Model, now: datetime) -> datetime:
-    """No case matures after this at ``now``: now itself, or now − L without a horizon."""
-    return now if _delay(model) is not None else now - timedelta(days=model.outcome_lag_days or 0)
+def maturity(model: Model, scored_at: datetime) -> datetime:
+    return floor_hour(scored_at) + HOUR + order_delay(model)
 
 
 def _columns(conn: Connection, model: Model) -> tuple[Any, ...]:
     return (Prediction.case_id, Prediction.probability, Prediction.scored_at, Prediction.tags,
-            counted_label(conn, model.outcome_horizon_days), Outcome.first_observed_at)
+            counted_label(conn, model.outcome_horizon_days))
 
 _JOIN = and_(Outcome.model_id == Prediction.model_id, Outcome.case_id == Prediction.case_id)
 
@@ -89,32 +77,22 @@ def mature_cases(conn: Connection, model: Model, version: str, *, after: datetim
                  until: datetime) -> MatureCases:
     """Cases of ``version`` with after ≤ matured_at ≤ until, sorted by (matured_at, case_id).
 
-    ``until`` is at most :func:`latest_maturity` of the caller's now. The caller drops
-    the cases at or before its watermark.
+    The caller drops the cases at or before its watermark.
     """
-    base = select(*_columns(conn, model)).where(Prediction.model_id == model.id,
-                                                Prediction.version == version)
-    delay = _delay(model)
-    if delay is not None:
-        # matured_at = floor_hour(scored_at) + 1h + delay ≤ until  ⇔  scored_at < floor_hour(until − delay)
-        query = base.outerjoin(Outcome, _JOIN).where(Prediction.scored_at < floor_hour(until - delay))
-        if after is not None:
-            query = query.where(Prediction.scored_at >= floor_hour(after - delay) - HOUR)
-        queries = [query]
-    else:
-        s, f = Prediction.scored_at, Outcome.first_observed_at
-        joined = base.join(Outcome, _JOIN).where(s <= until, f <= until)
-        # max(s, f) ≥ after  ⇔  f ≥ after, or s ≥ after with f < after: two index ranges, disjoint.
-        queries = [joined] if after is None else [joined.where(f >= after),
-                                                   joined.where(s >= after, f < after)]
+    delay = order_delay(model)
+    # matured_at = floor_hour(scored_at) + 1h + delay ≤ until  ⇔  scored_at < floor_hour(until − delay)
+    query = (select(*_columns(conn, model)).outerjoin(Outcome, _JOIN)
+             .where(Prediction.model_id == model.id, Prediction.version == version,
+                    Prediction.scored_at < floor_hour(until - delay)))
+    if after is not None:
+        query = query.where(Prediction.scored_at >= floor_hour(after - delay) - HOUR)
     rows = []
-    for query in queries:
-        for case_id, p, scored_at, tags, label, first_observed in conn.execute(query):
-            matured = maturity(model, scored_at, first_observed)
-            if matured is None or (after is not None and matured < after):
-                continue
-            state = (0 if model.implicit_negatives else -1) if label is None else label
-            rows.append((matured, case_id, p, state, tags))
+    for case_id, p, scored_at, tags, label in conn.execute(query):
+        matured = maturity(model, scored_at)
+        if after is not None and matured < after:
+            continue
+        state = (0 if model.implicit_negatives else -1) if label is None else label
+        rows.append((matured, case_id, p, state, tags))
     rows.sort(key=lambda r: (r[0], r[1]))
     return MatureCases(
         [r[0] for r in rows], [r[1] for r in rows],
@@ -129,12 +107,14 @@ def mature_case_windows(conn: Connection, model: Model, version: str, *, after: 
                         wait: timedelta = timedelta(0)) -> Iterator[MatureCases]:
     """:func:`mature_cases` from ``after`` (or the first case) to now − ``wait``, one window at a time.
 
-    Concatenated, the windows are exactly ``mature_cases(after, latest_maturity(now) − wait)``:
-    each window (lo, lo + window] drops what the previous one already returned. ``wait``
-    holds cases back beyond their maturity (late outcomes, rollup.outcome_delay); the
-    order and the watermarks stay in maturity time, so a changed wait never re-reads a case.
+    Concatenated, the windows are exactly ``mature_cases(after, now − wait)``: each window
+    (lo, lo + window] drops what the previous one already returned. ``wait`` holds cases
+    back beyond their maturity until they are complete (rollup.outcome_delay.extra_wait);
+    the order and the watermarks stay in maturity time, which does not depend on the wait,
+    so a changed wait never re-reads or skips a case: a longer one pauses the reading, a
+    shorter one resumes it from the watermark.
     """
-    end = latest_maturity(model, now) - wait
+    end = now - wait
     lo = after
     if lo is None:  # the whole history: from the version's first possible maturity
         lo = _next_maturity_bound(conn, model, version, None)
@@ -164,24 +144,15 @@ def _next_maturity_bound(conn: Connection, model: Model, version: str,
                          t: datetime | None) -> datetime | None:
     """A time no later than the first maturity after ``t`` (None: ever): nothing matures in (t, bound).
 
-    With a horizon maturity grows with scored_at. Without one, a case maturing after t has
-    scored_at > t or first_observed_at > t, and matures no earlier than that time.
+    Maturity grows with scored_at.
     """
-    def first(column: QueryableAttribute[datetime], *where: ColumnElement[bool]) -> datetime | None:
-        v = conn.scalar(select(func.min(column)).where(*where))
-        return v.replace(tzinfo=UTC) if v is not None and v.tzinfo is None else v  # SQLite's MIN()
-
-    delay = _delay(model)
-    in_version = (Prediction.model_id == model.id, Prediction.version == version)
-    scored, observed = Prediction.scored_at, Outcome.first_observed_at
-    if delay is not None:
-        since = () if t is None else (scored >= floor_hour(t - delay),)
-        s = first(scored, *in_version, *since)
-        return None if s is None else maturity(model, s, None)
-    s = first(scored, *in_version, *(() if t is None else (scored > t,)))
-    f = first(observed, Outcome.model_id == model.id, *(() if t is None else (observed > t,)))
-    bounds = [b for b in (s, f) if b is not None]
-    return min(bounds) if bounds else None
+    scored = Prediction.scored_at
+    since = () if t is None else (scored >= floor_hour(t - order_delay(model)),)
+    s = conn.scalar(select(func.min(scored)).where(Prediction.model_id == model.id,
+                                                    Prediction.version == version, *since))
+    if s is None:
+        return None
+    return maturity(model, s.replace(tzinfo=UTC) if s.tzinfo is None else s)  # SQLite's MIN(): naive
 
 
 @dataclass(frozen=True, slots=True)
@@ -196,15 +167,13 @@ def outcomes_received_since(conn: Connection, model: Model, version: str,
                             since: datetime) -> list[LateOutcome]:
     """Outcomes (new or corrected) received after ``since``, with their case's maturity time."""
     query = (
-        select(Prediction.case_id, Prediction.scored_at, Prediction.tags, Outcome.first_observed_at,
-               Outcome.received_at)
+        select(Prediction.case_id, Prediction.scored_at, Prediction.tags, Outcome.received_at)
         .join(Outcome, _JOIN)
         .where(Prediction.model_id == model.id, Prediction.version == version,
                Outcome.received_at > since)
     )
     out = []
-    for case_id, scored_at, tags, first_observed, received_at in conn.execute(query):
-        matured = maturity(model, scored_at, first_observed)
-        if matured is not None:
-            out.append(LateOutcome(matured, case_id, orjson.loads(tags) if tags else {}, received_at))
+    for case_id, scored_at, tags, received_at in conn.execute(query):
+        out.append(LateOutcome(maturity(model, scored_at), case_id, orjson.loads(tags) if tags else {},
+                               received_at))
     return out

@@ -14,6 +14,7 @@ which another worker takes them over with the same message id.
 from __future__ import annotations
 
 import json
+from collections.abc import Collection
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any, cast
@@ -74,11 +75,18 @@ def claim_due(
     limit: int,
     lease: timedelta,
     only_ids: list[int] | None = None,
+    skip_models: Collection[int] = (),
 ) -> list[int]:
-    """Claim up to ``limit`` due deliveries for ``token``; the ids claimed, oldest due first."""
+    """Claim up to ``limit`` due deliveries for ``token``; the ids claimed, oldest due first.
+
+    Deliveries of events of ``skip_models`` (held back by ``models.isolation``) are left alone.
+    """
     candidates = select(D.id).where(_claimable(now)).order_by(D.next_attempt_at, D.id).limit(limit)
     if only_ids is not None:
         candidates = candidates.where(D.id.in_(only_ids))
+    if skip_models:
+        held = select(OutboxEvent.id).where(OutboxEvent.model_id.in_(sorted(skip_models)))
+        candidates = candidates.where(D.event_id.not_in(held))
     # FOR UPDATE SKIP LOCKED is rendered on PostgreSQL only. The candidates are a CTE, which
     # PostgreSQL evaluates once: as an IN (subquery) it may be re-run for each updated row,
     # each run skipping the rows this statement just locked, so LIMIT would not hold.
@@ -117,6 +125,7 @@ class ClaimedDelivery:
     body: str
     attempts: int
     created_at: datetime
+    model_id: int | None = None  # the event's model; None for a target's ping
 
 
 def claimed_work(session: Session, ids: list[int]) -> list[ClaimedDelivery]:
@@ -125,7 +134,7 @@ def claimed_work(session: Session, ids: list[int]) -> list[ClaimedDelivery]:
     rows = session.execute(
         select(
             D.id, D.message_id, D.target_id, WebhookTarget.url, WebhookTarget.secret,
-            OutboxEvent.body, D.attempts, D.created_at,
+            OutboxEvent.body, D.attempts, D.created_at, OutboxEvent.model_id,
         )
         .join(WebhookTarget, WebhookTarget.id == D.target_id)
         .join(OutboxEvent, OutboxEvent.id == D.event_id)

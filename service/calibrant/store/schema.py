@@ -9,6 +9,7 @@ from __future__ import annotations
 from calibrant.store import (
     alarm_tables,
     history_tables,
+    job_failure_tables,
     page_session_tables,
     refresh_job_tables,
     rollup_tables,
@@ -20,7 +21,6 @@ from calibrant.store.tables import Base
 metadata = Base.metadata
 
 __all__ = [
-    "Base", "alarm_tables", "history_tables", "metadata", "page_session_tables", "refresh_job_tables",
-    "rollup_tables", "tables",
-    "webhook_tables",
+    "Base", "alarm_tables", "history_tables", "job_failure_tables", "metadata", "page_session_tables",
+    "refresh_job_tables", "rollup_tables", "tables", "webhook_tables",
 ]

@@ -95,8 +95,8 @@ class Outcome(Base):
     case_id: Mapped[str] = mapped_column(case_id_type(), primary_key=True)
     label: Mapped[int] = mapped_column(SmallInteger)
     observed_at: Mapped[datetime]
-    # observed_at of the first label, kept through corrections: without an outcome horizon a
-    # case matures when its first outcome was observed, so a correction never moves it.
+    # observed_at of the first label, kept through corrections: the case's delay from scoring
+    # to report (rollup.outcome_delay) is measured from it.
     first_observed_at: Mapped[datetime]
     # When the event happened, if the sender said (observed_at is when it was reported). With a
     # horizon, an event that happened after it counts as a 0 (rollup.outcome_delay).
@@ -104,7 +104,7 @@ class Outcome(Base):
     received_at: Mapped[datetime]
     revision: Mapped[int] = mapped_column(Integer, default=1)  # 1 = first label; +1 per correction
 
-    # Charts of models without a horizon read cases by this time (store.mature_cases).
+    # The delay measure reads the cases first reported in its look-back (store.delay_repo).
     __table_args__ = (Index(None, "model_id", "first_observed_at"),)
 
 

@@ -7,6 +7,7 @@ from fastapi import APIRouter, Request, Response
 
 from calibrant.api.body import read_capped
 from calibrant.api.deps import Admin, Reader, RuntimeDep
+from calibrant.api.job_failure_schemas import JobFailureOut
 from calibrant.api.schemas import (
     PROBLEM_RESPONSES,
     CaseOut,
@@ -18,7 +19,7 @@ from calibrant.api.schemas import (
     OutcomeDelayOut,
     request_body,
 )
-from calibrant.models import service
+from calibrant.models import isolation, service
 from calibrant.models.settings import ModelSettingsPatch
 from calibrant.rollup import outcome_delay
 from calibrant.store import models_repo
@@ -93,7 +94,9 @@ async def put_model(
 async def get_model(model: str, runtime: RuntimeDep, _caller: Reader) -> ModelOut:
     def work(session: Session) -> ModelOut:
         row = service.require(session, model)
-        return _model_out(row, models_repo.counts(session, row.id))
+        out = _model_out(row, models_repo.counts(session, row.id))
+        out.job_failures = [JobFailureOut.of(r) for r in isolation.failures(session, row.id)]
+        return out
 
     return await runtime.run(work)
 

@@ -140,6 +140,15 @@ class ScrapeCollector(Collector):
         if f.last_refresh_at is not None:
             last.add_metric([], f.last_refresh_at.timestamp())
         yield last
+        failed = GaugeMetricFamily("calibrant_job_failed_attempts", "Consecutive failed attempts of a job on "
+                                   "a model (no sample: the job processes the model)",
+                                   labels=["model", "job"])
+        quarantined = GaugeMetricFamily("calibrant_job_quarantined", "1 while a job skips a model until an "
+                                        "admin resumes it", labels=["model", "job"])
+        for record in f.job_failures:
+            failed.add_metric([record.model, record.job], record.attempts)
+            quarantined.add_metric([record.model, record.job], 1 if record.quarantined else 0)
+        yield from (failed, quarantined)
 
 
 def _add_time(at: GaugeMetricFamily, age: GaugeMetricFamily, model: ModelFigures, when: datetime | None,
