@@ -105,8 +105,12 @@ def measure(workdir: Path, hours: int, rows: int, segments: int) -> Held:
               "tags": {"region": f"r{i % segments}", "channel": f"c{(i // segments) % segments}"}}
              for h in range(hours) for i in range(rows)]
     labels = [{"id": item["id"], "label": int(item["probability"] > 0.5),
-               "observed_at": (NOW - timedelta(hours=1)).isoformat()} for item in items]
+               "observed_at": (datetime.fromisoformat(item["scored_at"]) + timedelta(hours=2)).isoformat()}
+              for item in items]
     with TestClient(create_app(settings, engine=engine, clock=clock)) as client:
+        # A horizon, so every case is mature at NOW and the alarm phase reads them all.
+        r = client.put("/v1/models/bench", json={"outcome_horizon_days": 1, "outcome_lag_days": 0})
+        assert r.status_code in (200, 201), r.text
         for kind, rows_ in (("predictions", items), ("outcomes", labels)):
             for offset in range(0, len(rows_), BATCH):
                 r = client.post(f"/v1/models/bench/{kind}", json={kind: rows_[offset:offset + BATCH]})
