@@ -30,12 +30,17 @@ DEFAULT_WAIT_S = 600.0
 FIRST_POLL_S, LAST_POLL_S = 0.005, 0.5
 
 
+# A job row written by an older or interrupted runner may lack some progress members.
+_NO_PROGRESS: dict[str, Any] = {"phase": "starting", "round": 0, "buckets_done": 0, "buckets_total": 0,
+                                "models": []}
+
+
 def job_out(job: JobView) -> dict[str, Any]:
     return {
         "id": job.id, "state": job.state, "requested_by": job.requested_by, "worker": job.worker,
         "started_at": rfc3339(job.started_at), "heartbeat_at": rfc3339(job.heartbeat_at),
         "finished_at": rfc3339(job.finished_at) if job.finished_at is not None else None,
-        "progress": job.progress, "result": job.result, "errors": job.errors,
+        "progress": {**_NO_PROGRESS, **job.progress}, "result": job.result, "errors": job.errors,
     }
 
 
