@@ -14,15 +14,20 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from urllib.parse import quote
 
-from calibrant_client import Client
+from calibrant_client import CalibrantError, Client
 from demo import scenario
 from demo.progress import Progress
 from demo.receiver import Delivery, WebhookReceiver
-from demo.service import demo_service
+from demo.service import DemoServiceError, demo_service
 
 CHART_RULES = ("calibration-chart-upper", "calibration-chart-lower")
 POST_CHUNK = 10_000  # the server's batch limit: one progress step per request
 DELIVERY_DEADLINE_S = 30.0
+# A busy machine (a test suite alongside) slows every answer: each request may take two minutes,
+# a 503 is retried up to 10 times honouring Retry-After, and the refresh job may run an hour.
+REQUEST_TIMEOUT_S = 120.0
+REQUEST_RETRIES = 10
+REFRESH_TIMEOUT_S = 3600.0
 
 
 @dataclass
@@ -47,6 +52,25 @@ def _post(client: Client, kind: str, items: list[dict]) -> None:
         chunk = items[offset:offset + POST_CHUNK]
         send(scenario.MODEL, chunk)
         bar.advance(len(chunk))
+
+
+class _JobBar:
+    """The refresh job's progress, in hour buckets, on the demo's progress line."""
+
+    def __init__(self) -> None:
+        self.bar: Progress | None = None
+        self.asked = time.monotonic()
+
+    def __call__(self, job: dict) -> None:
+        if self.asked:  # the first call is POST /v1/refresh's answer
+            say(f"  refresh job {job['id']} ({job['state']}) answered in "
+                f"{(time.monotonic() - self.asked) * 1000:.0f} ms")
+            self.asked = 0.0
+        progress = job["progress"]
+        if self.bar is None and progress["buckets_total"]:
+            self.bar = Progress("summaries", progress["buckets_total"])
+        if self.bar is not None:
+            self.bar.advance(progress["buckets_done"] - self.bar.done)
 
 
 def _keep_only_charts(client: Client, days: int) -> None:
@@ -97,7 +121,8 @@ def run(config: scenario.ScenarioConfig, workdir: Path) -> DemoResult:
         f"days; {len(traffic.outcomes):,} reported late (on-time parcels are never reported)")
     say(f"  from {traffic.drift_date:%Y-%m-%d} the odds of lateness double in the "
         f"{scenario.DRIFTING_DEPOT} depot only")
-    with demo_service(workdir) as base_url, Client(base_url, timeout=120) as client, \
+    with demo_service(workdir) as base_url, \
+            Client(base_url, timeout=REQUEST_TIMEOUT_S, max_retries=REQUEST_RETRIES) as client, \
             WebhookReceiver(_print_delivery) as receiver:
         say(f"calibrant serving on {base_url} (database {workdir / 'calibrant.db'})")
         client.request("PUT", f"/v1/models/{scenario.MODEL}", json=scenario.MODEL_SETTINGS)
@@ -110,8 +135,9 @@ def run(config: scenario.ScenarioConfig, workdir: Path) -> DemoResult:
         # History is backfilled as a production system would send it: predictions, then outcomes.
         _post(client, "predictions", traffic.predictions)
         _post(client, "outcomes", traffic.outcomes)
-        say("running the jobs (POST /v1/refresh): summaries, charts, webhook delivery ...")
-        jobs = client.request("POST", "/v1/refresh")["jobs"]
+        say("running the jobs (a refresh job, POST /v1/refresh): summaries, charts, webhook delivery ...")
+        job = client.refresh(timeout=REFRESH_TIMEOUT_S, poll_seconds=0.5, on_progress=_JobBar())
+        jobs = job["result"]["jobs"]
         say(f"  {jobs['refresh'].get('buckets', 0):,} hourly summaries, {jobs['alarms'].get('cases', 0):,} "
             f"chart cases, {jobs['alarms'].get('opened', 0)} alarm(s) opened")
         alarms = client.request("GET", f"/v1/models/{scenario.MODEL}/alarms")["alarms"]
@@ -151,7 +177,11 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m demo", description=__doc__)
     parser.add_argument("--workdir", type=Path, default=Path("var/demo"))
     args = parser.parse_args(argv)
-    result = run(scenario.ScenarioConfig(), args.workdir)
+    try:
+        result = run(scenario.ScenarioConfig(), args.workdir)
+    except (CalibrantError, DemoServiceError) as exc:  # say what stopped it, without a traceback
+        say(f"\ndemo stopped: {exc}")
+        return 1
     say(f"\ndemo finished in {result.seconds:.0f} s; {len(result.alarms)} alarm(s), "
         f"{sum(d.valid for d in result.deliveries)} signed webhook(s) verified")
     return 0

@@ -103,7 +103,7 @@ def test_an_alarm_opening_and_resolving_each_write_one_structured_line(db: Datab
         item = {"id": "p1", "probability": 0.3, "scored_at": WEEK.isoformat()}
         assert client.post("/v1/models/m/predictions", json={"predictions": [item]}).status_code == 200
         clock.advance(timedelta(days=12))
-        assert client.post("/v1/refresh").status_code == 200
+        assert client.post("/v1/refresh?wait=true").status_code == 200
         (alarm,) = client.get("/v1/models/m/alarms", params={"state": "open"}).json()["alarms"]
         opened = [r for r in caplog.records if getattr(r, "event", None) == "alarm.opened"]
         assert len(opened) == 1

@@ -1,6 +1,6 @@
 """``create_app(settings)``: the composition root, the only way to build the HTTP application.
 
-The one place that wires the HTTP routers, the job runner (``jobs.run_all``) and the
+The one place that wires the HTTP routers, the refresh jobs (``refresh_job``) and the
 scheduler into one process; the API reaches the jobs only through ``Runtime.jobs``.
 """
 
@@ -8,7 +8,6 @@ from __future__ import annotations
 
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
-from dataclasses import dataclass
 
 from fastapi import FastAPI
 
@@ -16,6 +15,7 @@ import calibrant
 from calibrant import jobs, scheduler
 from calibrant.api import problems
 from calibrant.api.deadline import RequestDeadline
+from calibrant.api.read_requests import ReadOnlyRequests
 from calibrant.api.request_gate import RequestGate
 from calibrant.api.routes import (
     alarms,
@@ -38,6 +38,7 @@ from calibrant.config import Settings
 from calibrant.notify.senders import Sender, sender_from_settings
 from calibrant.notify.targets import Resolver, system_resolver
 from calibrant.pages.router import PageHost, build_router
+from calibrant.refresh_job import RefreshJobs
 from calibrant.store.engine import make_engine, make_session_factory
 from calibrant.store.unit import Engine
 
@@ -46,16 +47,6 @@ outcomes that arrive later, and reports how honest those probabilities still are
 
 Monitoring signals support, and do not replace, model validation, local regulation and
 qualified review where decisions affect people."""
-
-
-@dataclass(frozen=True, slots=True)
-class InProcessJobs:
-    """The runtime's job port (``api.runtime.JobRunner``): every job, in this process."""
-
-    ctx: jobs.JobContext
-
-    def run_all(self) -> jobs.RunReport:
-        return jobs.run_all(self.ctx)
 
 
 def create_app(
@@ -80,7 +71,7 @@ def create_app(
         engine=engine,
         sessions=make_session_factory(engine),
         clock=clock,
-        jobs=InProcessJobs(job_context),
+        jobs=RefreshJobs(job_context, lease_seconds=settings.refresh_job_lease_seconds),
         webhook_sender=webhook_sender,
         resolver=resolver,
     )
@@ -108,6 +99,7 @@ def create_app(
     # Added first, so it runs inside the gate: a slow upload is not held against the deadline.
     app.add_middleware(RequestDeadline, seconds=settings.request_seconds,
                        retry_after=settings.retry_after_seconds)
+    app.add_middleware(ReadOnlyRequests)
     app.add_middleware(RequestGate, max_body_bytes=settings.max_body_bytes)
     app.include_router(health.router)
     app.include_router(openmetrics.router)

@@ -39,6 +39,7 @@ if TYPE_CHECKING:
 # plotly, reportlab, uvicorn) took its process from 166 to 267 MiB resident before reading a row.
 
 _WHOLE = "settings"
+REFRESH_TIMEOUT_S = 6 * 3600.0  # the longest `calibrant refresh` waits for its job to end
 # How long uvicorn waits for a worker to answer its health ping (its default is 5 s). A worker
 # imports numpy, scipy and FastAPI before it can answer; on a busy host that took longer than 5 s
 # here, and uvicorn then killed and restarted each worker in a loop.
@@ -153,15 +154,29 @@ def _job_context(settings: Settings) -> JobContext:
 def cmd_refresh(args: argparse.Namespace) -> int:
     settings = _settings()
     logging.config.dictConfig(log_config(settings.log_level, settings.log_format))
-    from calibrant.jobs import run_all  # noqa: PLC0415 — see the note on lazy imports at the top
+    # see the note on lazy imports at the top
+    from calibrant import refresh_progress  # noqa: PLC0415
+    from calibrant.refresh_job import RefreshJobs  # noqa: PLC0415
 
     ctx = _job_context(settings)
-    report = run_all(ctx)
-    for job, figures in report["jobs"].items():
+    try:
+        runner = RefreshJobs(ctx, lease_seconds=settings.refresh_job_lease_seconds)
+        job, ending = refresh_progress.run(runner, args.timeout, quiet=args.quiet)
+    except DatabaseError as exc:
+        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        print(f"calibrant: the database did not answer within {args.timeout:g} s: {first}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("calibrant: interrupted; a job this command started is abandoned once its lease lapses "
+              f"({settings.refresh_job_lease_seconds:g} s)", file=sys.stderr)
+        return 130
+    finally:
+        ctx.engine.dispose()
+    print(ending, file=sys.stderr)
+    for name, figures in ((job.result or {}).get("jobs") or {}).items():
         shown = ", ".join(f"{k}={v}" for k, v in figures.items()) or "nothing to do"
-        print(f"{job}: {shown}")
-    ctx.engine.dispose()
-    return 0
+        print(f"{name}: {shown}")
+    return 0 if job.state == "succeeded" else 1
 
 
 def cmd_scheduler(args: argparse.Namespace) -> int:
@@ -350,7 +365,12 @@ def build_parser() -> argparse.ArgumentParser:
     wait.add_argument("--interval", type=float, default=1.0, help="seconds between two tries")
     wait.set_defaults(func=cmd_wait)
 
-    sub.add_parser("refresh", help="run every job until no work is left").set_defaults(func=cmd_refresh)
+    refresh = sub.add_parser("refresh", help="run every job until no work is left (a refresh job, with "
+                             "progress; joins the one running if any)")
+    refresh.add_argument("--timeout", type=float, default=REFRESH_TIMEOUT_S,
+                         help=f"give up waiting after this many seconds (default {REFRESH_TIMEOUT_S:g})")
+    refresh.add_argument("--quiet", action="store_true", help="no progress bar")
+    refresh.set_defaults(func=cmd_refresh)
     sub.add_parser("scheduler", help="run the scheduled jobs without serving").set_defaults(
         func=cmd_scheduler
     )

@@ -104,6 +104,11 @@ class Settings(BaseSettings):
     refresh_seconds: float = Field(
         60.0, gt=0, le=86_400, description="Interval of the scheduled jobs (refresh, delivery)."
     )
+    refresh_job_lease_seconds: float = Field(
+        120.0, ge=10, le=86_400,
+        description="A refresh job whose runner wrote no heartbeat for this long (its process died) "
+        "is marked abandoned, and the next POST /v1/refresh starts a new one. The runner beats every second.",
+    )
     job_retry_base_seconds: float = Field(
         60.0, ge=1, le=86_400,
         description="After a job fails on one model, how long before it tries that model again; doubles "

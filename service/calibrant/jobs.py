@@ -3,7 +3,7 @@
 A job is a plain function of a ``JobContext`` that returns its figures (counts of
 what it did); each claims its units of work in the database, so any number of
 processes may run them at once. ``app.create_app`` and the ``calibrant`` command
-build the context; the scheduler and POST /v1/refresh call ``run_all``.
+build the context; the scheduler and a refresh job (``refresh_job``) call ``run_all``.
 """
 
 from __future__ import annotations
@@ -12,7 +12,7 @@ import os
 import socket
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import TypedDict
+from typing import Protocol, TypedDict
 
 from calibrant.alarms import jobs as alarm_jobs
 from calibrant.clock import Clock
@@ -22,6 +22,7 @@ from calibrant.notify import jobs as notify_jobs
 from calibrant.notify.senders import Sender, sender_from_settings
 from calibrant.retention import job as retention_job
 from calibrant.rollup import refresh
+from calibrant.store.dirty import BucketKey
 from calibrant.store.engine import make_session_factory
 from calibrant.store.unit import Engine
 
@@ -41,6 +42,14 @@ def worker_name() -> str:
     return f"{socket.gethostname()}:{os.getpid()}"[:64]
 
 
+class JobProgress(Protocol):
+    """Hears how far ``run_all`` got: a refresh job's progress (``refresh_job``)."""
+
+    def phase(self, job: str, round_: int) -> None: ...
+
+    def buckets_done(self, keys: list[BucketKey]) -> None: ...
+
+
 @dataclass(frozen=True, slots=True)
 class JobContext:
     """What a job may use; built by the composition roots (serve, scheduler, refresh)."""
@@ -49,6 +58,7 @@ class JobContext:
     clock: Clock
     settings: Settings
     webhook_sender: Sender | None = None  # None: the sender CALIBRANT_WEBHOOK_SENDER names
+    progress: JobProgress | None = None  # None: nobody follows this run
 
 
 @dataclass(frozen=True, slots=True)
@@ -64,7 +74,9 @@ def _guard(ctx: JobContext, job: str) -> ModelGuard:
 
 def _refresh(ctx: JobContext) -> JobFigures:
     guard = _guard(ctx, refresh.JOB_NAME)
-    return refresh.refresh_dirty(ctx.engine, ctx.clock, worker=worker_name(), guard=guard).as_dict()
+    on_buckets = ctx.progress.buckets_done if ctx.progress is not None else None
+    return refresh.refresh_dirty(ctx.engine, ctx.clock, worker=worker_name(), guard=guard,
+                                 on_buckets=on_buckets).as_dict()
 
 
 def _alarms(ctx: JobContext) -> JobFigures:
@@ -99,9 +111,11 @@ def run_all(ctx: JobContext, max_rounds: int = 20) -> RunReport:
     """Run every job until a whole round does no work; return what each did, summed."""
     totals: dict[str, JobFigures] = {job.name: {} for job in JOBS}
     rounds = 0
-    for rounds in range(1, max_rounds + 1):  # noqa: B007 — reported below
+    for rounds in range(1, max_rounds + 1):
         busy = False
         for job in JOBS:
+            if ctx.progress is not None:
+                ctx.progress.phase(job.name, rounds)
             done = job.run(ctx)
             for key, value in done.items():
                 totals[job.name][key] = totals[job.name].get(key, 0) + value

@@ -75,6 +75,8 @@ def setup_model(client: TestClient, model: str, *, keep: tuple[str, ...], chart_
 
 
 def refresh(client: TestClient) -> dict:
-    r = client.post("/v1/refresh")
+    """Run every job to the end (a refresh job, waited for); what each job did."""
+    r = client.post("/v1/refresh", params={"wait": "true"})
     assert r.status_code == 200, r.text
-    return r.json()
+    assert r.json()["state"] == "succeeded", r.json()
+    return r.json()["result"]

@@ -41,7 +41,7 @@ def seed(client: TestClient, model: str = "late-delivery") -> tuple[np.ndarray, 
     posted = client.post(f"/v1/models/{model}/predictions", json={"predictions": predictions})
     assert posted.status_code == 200
     assert client.post(f"/v1/models/{model}/outcomes", json={"outcomes": outcomes}).status_code == 200
-    assert client.post("/v1/refresh").status_code == 200
+    assert client.post("/v1/refresh?wait=true").status_code == 200
     return p, y, depots
 
 

@@ -60,7 +60,7 @@ def test_any_other_media_type_is_415_naming_json(db: Database, content_type: str
 def test_requests_without_a_body_need_no_media_type(db: Database) -> None:
     with make_client(db) as client:
         assert client.get("/v1/models", headers={"content-type": "text/plain"}).status_code == 200
-        assert client.post("/v1/refresh").status_code == 200
+        assert client.post("/v1/refresh?wait=true").status_code == 200
         empty = client.post("/v1/models/churn/predictions", headers={"content-type": "text/plain"})
     assert_problem(empty, 422)  # an empty body reaches the route, which says it is not JSON
 

@@ -103,7 +103,7 @@ def seed_data(client: TestClient) -> None:
     ):
         response = client.post(path, json=body)
         assert response.status_code < 300, response.text
-    assert client.post("/v1/refresh").status_code == 200
+    assert client.post("/v1/refresh?wait=true").status_code == 200
 
 
 def time_long_range(client: TestClient) -> tuple[int, float]:

@@ -334,7 +334,7 @@ def run_service(cases: Cases, outcomes: Outcomes, timeline: Timeline, cadence: s
                     scored, arrived = hi, top
                     if day not in due:
                         continue
-                    result.jobs.update(_ok(client.post("/v1/refresh"))["jobs"]["alarms"])
+                    result.jobs.update(_ok(client.post("/v1/refresh?wait=true"))["result"]["jobs"]["alarms"])
                     result.refreshes += 1
                     if not result.rules:
                         listed = _ok(client.get(f"/v1/models/{MODEL}/rules"))

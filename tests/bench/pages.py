@@ -112,7 +112,7 @@ def run(url: str, *, weeks: int, segments: int, per_day: int, repeats: int) -> d
             clock.set(now)
             result["load_s"] = time.perf_counter() - t
             t = time.perf_counter()
-            assert client.post("/v1/refresh").status_code == 200
+            assert client.post("/v1/refresh?wait=true").status_code == 200
             result["refresh_s"] = time.perf_counter() - t
             for name, path in (("model_page", f"/models/{MODEL}"), ("overview", "/")):
                 server, wall, cpu = [], [], []

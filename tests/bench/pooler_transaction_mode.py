@@ -101,7 +101,7 @@ def _run(url: str, prepared: bool, log_path: Path) -> dict[str, Any]:
                       if "psycopg.errors" in line or "prepared statement" in line]
             cause = f" — server log: {causes[0].strip()[:240]}" if causes else ""
             return {"error": failures[0][:60] + cause}
-        refreshed = client.post("/v1/refresh")
+        refreshed = client.post("/v1/refresh?wait=true")
         if refreshed.status_code != 200:
             return {"error": f"refresh: {refreshed.status_code} {refreshed.text[:300]}"}
         query = {"start": WEEK.isoformat(), "end": (WEEK + timedelta(days=14)).isoformat()}

@@ -2,12 +2,12 @@
 
     python -m tests.bench.retention [--small] [--dialect sqlite|postgresql|both] [--batch-rows N]
 
-For each dialect: 200,000 predictions scored over the 60 days before the clock's midnight, each
-with an outcome, are written through the ingest writes and summarised by the refresh; then the
-model gets 30 days of retention and one run of the retention job removes the older half.
-Printed: rows removed per second (predictions, outcomes and label history together), the
-number of transactions and the longest one in milliseconds (what ingest may wait for, measured from BEGIN to COMMIT on the
-engine), and whether the summaries are all still there. Timing is printed, never asserted.
+For each dialect: 200,000 predictions scored over the 60 days before the clock's midnight, each with
+an outcome, are written through the ingest writes and summarised by the refresh; then the model gets
+30 days of retention and one run of the retention job removes the older half. Printed: rows removed
+per second (predictions, outcomes and label history together), the number of transactions and the
+longest one in milliseconds (what ingest may wait for, measured from BEGIN to COMMIT on the engine),
+and whether the summaries are all still there. Timing is printed, never asserted.
 """
 
 from __future__ import annotations

@@ -45,7 +45,9 @@ def test_post_repost_outcomes_and_metrics(calibrant: Client) -> None:
     outcomes = [{"id": f"order-{i}", "label": i % 2, "observed_at": T0 + timedelta(days=1)} for i in range(5)]
     answer = calibrant.send_outcomes("late-delivery", outcomes)
     assert answer == {"accepted": 5, "duplicates": 0, "corrected": 0, "expired": 0}
-    calibrant.request("POST", "/v1/refresh")
+    job = calibrant.refresh(poll_seconds=0.05)
+    assert job["state"] == "succeeded"
+    assert job["progress"]["models"] == [{"model": "late-delivery", "buckets_done": 5, "buckets_total": 5}]
     out = calibrant.metrics("late-delivery", T0, T0 + timedelta(days=7), granularity="week")
     (week,) = out["periods"]
     assert (week["n_predictions"], week["n_labeled"]) == (5, 5)

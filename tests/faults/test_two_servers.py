@@ -125,7 +125,7 @@ def test_two_servers_meet_new_models_at_once(db: Database, tmp_path: Path,
         second += [(s, "POST", "/v1/refresh", None) for s in servers]
         _assert_no_5xx(_at_once(second))
         for s in servers:  # one after the other: when the second returns, no work is left anywhere
-            assert httpx.post(f"{s}/v1/refresh", timeout=REQUEST_TIMEOUT_S).status_code == 200
+            assert httpx.post(f"{s}/v1/refresh?wait=true", timeout=REQUEST_TIMEOUT_S).status_code == 200
         together = {m: httpx.get(f"{a.base_url}/v1/models/{m}/metrics", params=span,
                                  timeout=REQUEST_TIMEOUT_S).json() for m in MODELS}
 
@@ -145,7 +145,7 @@ def test_two_servers_meet_new_models_at_once(db: Database, tmp_path: Path,
         for m in MODELS:
             assert client.post(f"/v1/models/{m}/predictions", json=bodies[m][0]).status_code == 200
             assert client.post(f"/v1/models/{m}/outcomes", json=bodies[m][1]).status_code == 200
-        assert client.post("/v1/refresh").status_code == 200
+        assert client.post("/v1/refresh?wait=true").status_code == 200
         for m in MODELS:
             single = client.get(f"/v1/models/{m}/metrics", params=span).json()
             assert single.get("periods"), (m, single)

@@ -56,9 +56,11 @@ def load(client: TestClient) -> list[dict[str, Any]]:
 
 
 def run_jobs(client: TestClient) -> dict[str, Any]:
-    r = client.post("/v1/refresh")
+    """Run every job to the end (a refresh job, waited for); what each job did."""
+    r = client.post("/v1/refresh", params={"wait": "true"})
     assert r.status_code == 200, r.text
-    return r.json()
+    assert r.json()["state"] == "succeeded", r.json()
+    return dict(r.json()["result"])
 
 
 def weekly(client: TestClient, **params: str) -> list[dict[str, Any]]:

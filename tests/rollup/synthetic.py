@@ -103,9 +103,11 @@ def post_all(client: TestClient, model: str, frame: pd.DataFrame, *, outcomes: b
 
 
 def refresh(client: TestClient) -> dict:
-    r = client.post("/v1/refresh")
+    """Run every job to the end (a refresh job, waited for); what each job did."""
+    r = client.post("/v1/refresh", params={"wait": "true"})
     assert r.status_code == 200, r.text
-    return r.json()
+    assert r.json()["state"] == "succeeded", r.json()
+    return r.json()["result"]
 
 
 def metrics(client: TestClient, model: str, **params: str) -> dict:

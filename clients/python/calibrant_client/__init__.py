@@ -11,6 +11,7 @@ from calibrant_client.batching import BatchingSender, FailedBatch
 from calibrant_client.client import (
     MAX_BATCH_ITEMS,
     CalibrantError,
+    CalibrantJobError,
     CalibrantRequestError,
     CalibrantUnavailableError,
     Client,
@@ -24,6 +25,7 @@ __all__ = [
     "MAX_BATCH_ITEMS",
     "BatchingSender",
     "CalibrantError",
+    "CalibrantJobError",
     "CalibrantRequestError",
     "CalibrantUnavailableError",
     "Client",

@@ -11,6 +11,10 @@ exponential backoff, honouring ``Retry-After``. Other 4xx answers are not
 retried; they raise ``CalibrantRequestError`` carrying the server's RFC 9457
 problem document. Datetimes are sent as RFC 3339 with their offset; a naive
 datetime is refused here, before anything is sent, as the server would refuse it.
+
+``refresh()`` starts a refresh job on the server (or joins the one running) and
+polls it until it ends, reporting its progress to a callback; a server too busy to
+answer a poll (503 with Retry-After) is waited for, up to the caller's timeout.
 """
 
 from __future__ import annotations
@@ -48,6 +52,15 @@ class CalibrantRequestError(CalibrantError):
         shown = "; ".join(f"item {e.get('index')}: {e.get('field')}: {e.get('message')}"
                           for e in self.errors[:5])
         super().__init__(f"{status} {self.title}: {self.detail}" + (f" ({shown})" if shown else ""))
+
+
+class CalibrantJobError(CalibrantError):
+    """A refresh job ended without succeeding (failed, or abandoned by a server that stopped), or
+    did not end within the caller's timeout; ``job`` is the job as last seen."""
+
+    def __init__(self, message: str, job: dict[str, Any]):
+        self.job = job
+        super().__init__(message)
 
 
 class CalibrantUnavailableError(CalibrantError):
@@ -180,6 +193,38 @@ class Client:
         if tag is not None:
             params["tag"] = [tag] if isinstance(tag, str) else list(tag)
         return self.request("GET", f"/v1/models/{model}/metrics", params=params)
+
+    # ------------------------------------------------------------------ jobs
+    def refresh(self, *, wait: bool = True, timeout: float = 3600.0, poll_seconds: float = 1.0,
+                on_progress: Callable[[dict[str, Any]], None] | None = None) -> dict[str, Any]:
+        """Start a refresh job (POST /v1/refresh) or join the running one; return the job.
+
+        With ``wait`` (the default), poll GET /v1/refresh-jobs/{id} every ``poll_seconds`` until
+        it ends, calling ``on_progress`` with each state seen, and return the ended job. A poll the
+        server cannot answer now is retried until ``timeout`` seconds (wall time) have passed.
+        Raises ``CalibrantJobError`` if the job failed, was abandoned, or outlived ``timeout``.
+        """
+        deadline = self._wall_clock() + timeout
+        # Sending it again is harmless: a second POST meets the running job or refreshes afresh.
+        job = self.request("POST", "/v1/refresh", retry=True)
+        if on_progress is not None:
+            on_progress(job)
+        while wait and job["state"] == "running":
+            if self._wall_clock() >= deadline:
+                raise CalibrantJobError(
+                    f"refresh job {job['id']} still running after {timeout:g} s; it goes on in the "
+                    f"server (GET /v1/refresh-jobs/{job['id']})", job)
+            self._sleep(poll_seconds)
+            try:
+                job = self.request("GET", f"/v1/refresh-jobs/{job['id']}")
+            except CalibrantUnavailableError:
+                continue  # the server is busy or restarting: keep polling until the deadline
+            if on_progress is not None:
+                on_progress(job)
+        if job["state"] in {"failed", "abandoned"}:
+            shown = "; ".join(job.get("errors") or []) or "no reason recorded"
+            raise CalibrantJobError(f"refresh job {job['id']} {job['state']}: {shown}", job)
+        return job
 
     # ------------------------------------------------------------------ any endpoint
     def request(self, method: str, path: str, *, json: Any = None, params: Mapping[str, Any] | None = None,

@@ -8,8 +8,9 @@ went through several transactions, each within its own deadline): it answers
 503 itself and leaves the handler to finish and be discarded. A response that
 has already started is never interrupted.
 
-``/v1/refresh`` and a rule's backtest (``…/backtest``) compute over a model's whole
-history and are exempt: their deadline is the job's. They are the two routes not
+``/v1/refresh`` (which with ``?wait=true`` waits for a refresh job, holding no connection
+meanwhile) and a rule's backtest (``…/backtest``, which computes over a model's whole
+history) are exempt: their deadline is the job's. They are the two routes not
 bound by the request deadline (a backtest on a loaded machine took over 6 s).
 """
 

@@ -5,8 +5,9 @@ Built by ``calibrant.app.create_app``; routes receive it through ``api.deps``.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from datetime import datetime
 from typing import Any, Protocol, TypeVar
 
 from starlette.concurrency import run_in_threadpool
@@ -20,13 +21,40 @@ from calibrant.store.unit import Engine, Session, SessionFactory, run_unit_of_wo
 T = TypeVar("T")
 
 
-class JobRunner(Protocol):
-    """The job port: POST /v1/refresh asks it to run every job until no work is left.
+class JobView(Protocol):
+    """A refresh job as the API shows it (``store.refresh_job_repo.JobRow`` is one)."""
 
-    The API never imports the jobs; the composition root supplies this.
+    @property
+    def id(self) -> str: ...
+    @property
+    def state(self) -> str: ...
+    @property
+    def worker(self) -> str: ...
+    @property
+    def requested_by(self) -> str: ...
+    @property
+    def started_at(self) -> datetime: ...
+    @property
+    def heartbeat_at(self) -> datetime: ...
+    @property
+    def finished_at(self) -> datetime | None: ...
+    @property
+    def progress(self) -> dict[str, Any]: ...
+    @property
+    def result(self) -> dict[str, Any] | None: ...
+    @property
+    def errors(self) -> list[str]: ...
+
+
+class JobRunner(Protocol):
+    """The job port: POST /v1/refresh starts (or joins) a refresh job; GET reads it.
+
+    The API never imports the jobs; the composition root supplies this (``refresh_job.RefreshJobs``).
     """
 
-    def run_all(self) -> Mapping[str, Any]: ...
+    def start(self, requested_by: str) -> JobView: ...
+
+    def get(self, job_id: str) -> JobView | None: ...
 
 
 @dataclass

@@ -213,6 +213,13 @@ def backlog(conn: Connection, tier: Tier[Any] = HOURS) -> int:
     return int(conn.execute(select(func.count()).select_from(tier.table)).scalar() or 0)
 
 
+def backlog_by_model(conn: Connection) -> dict[int, int]:
+    """Hour marks waiting for a refresh, per model id (a refresh job's totals)."""
+    t = DirtyBucket.__table__.c
+    rows = conn.execute(select(t.model_id, func.count()).group_by(t.model_id))
+    return {int(model_id): int(n) for model_id, n in rows}
+
+
 def hours_pending(conn: Connection, day: DayKey) -> bool:
     """Whether some hour of the day still waits for its recomputation (merge the day after it)."""
     t = HOURS.table

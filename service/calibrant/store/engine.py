@@ -1,15 +1,21 @@
 """Engines and sessions, made from settings (no import-time globals).
 
 SQLite: WAL, a busy timeout, foreign keys, a large page cache, and every
-transaction opened with ``BEGIN IMMEDIATE``. A deferred transaction that later
-writes fails with SQLITE_BUSY at once, ignoring the busy timeout; taking the
-write lock up front makes concurrent writers queue instead. Python 3.11's
-sqlite3 driver opens transactions on its own, so we switch that off and emit
-BEGIN ourselves (SQLAlchemy's documented recipe for pysqlite).
+transaction that may write opened with ``BEGIN IMMEDIATE``. A deferred transaction
+that later writes fails with SQLITE_BUSY at once, ignoring the busy timeout; taking
+the write lock up front makes concurrent writers queue instead. A transaction that
+only reads opens with a plain (deferred) ``BEGIN``: in WAL mode it reads a snapshot
+and never waits for the writer. Reads are those inside ``read_only()`` (every GET
+and HEAD request, ``api.read_requests``) or on a connection from ``unit.reading``.
+Python 3.11's sqlite3 driver opens transactions on its own, so we switch that off
+and emit BEGIN ourselves (SQLAlchemy's documented recipe for pysqlite).
 """
 
 from __future__ import annotations
 
+import contextlib
+from collections.abc import Iterator
+from contextvars import ContextVar
 from pathlib import Path
 from typing import Any
 
@@ -21,6 +27,38 @@ from calibrant.config import Settings
 from calibrant.store import deadlines
 
 _SQLITE_JOB_BUSY_MS = 30_000
+READ_OPTION = "calibrant_read_only"  # a connection execution option: its transactions only read
+_READ_ONLY: ContextVar[bool] = ContextVar("calibrant_read_only", default=False)
+
+
+@contextlib.contextmanager
+def read_only() -> Iterator[None]:
+    """Transactions begun inside this block (and threads it starts) only read: deferred on SQLite.
+
+    One that writes anyway (a GET that creates a model's default rules the first time) works
+    while no other writer holds the lock; under contention it fails with "database is locked",
+    and ``unit.run_unit_of_work`` runs it again inside ``may_write``, queueing for the lock.
+    """
+    token = _READ_ONLY.set(True)
+    try:
+        yield
+    finally:
+        _READ_ONLY.reset(token)
+
+
+@contextlib.contextmanager
+def may_write() -> Iterator[None]:
+    """Undo ``read_only`` for this block: its transactions begin ``BEGIN IMMEDIATE`` again."""
+    token = _READ_ONLY.set(False)
+    try:
+        yield
+    finally:
+        _READ_ONLY.reset(token)
+
+
+def reads_only() -> bool:
+    """True inside ``read_only`` (and not inside a ``may_write`` within it)."""
+    return _READ_ONLY.get()
 
 
 def make_engine(settings: Settings, **overrides: Any) -> Engine:
@@ -81,7 +119,8 @@ def _sqlite_engine(settings: Settings, url: Any, **overrides: Any) -> Engine:
 
     @event.listens_for(engine, "begin")
     def _on_begin(conn: Any) -> None:
-        conn.exec_driver_sql("BEGIN IMMEDIATE")
+        reads_only = _READ_ONLY.get() or conn.get_execution_options().get(READ_OPTION, False)
+        conn.exec_driver_sql("BEGIN" if reads_only else "BEGIN IMMEDIATE")
 
     @event.listens_for(engine, "checkout")
     def _on_checkout(dbapi_conn: Any, _record: Any, _proxy: Any) -> None:

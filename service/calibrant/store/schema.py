@@ -11,6 +11,7 @@ from calibrant.store import (
     history_tables,
     job_failure_tables,
     page_session_tables,
+    refresh_job_tables,
     retention_tables,
     rollup_tables,
     tables,
@@ -22,5 +23,5 @@ metadata = Base.metadata
 
 __all__ = [
     "Base", "alarm_tables", "history_tables", "job_failure_tables", "metadata", "page_session_tables",
-    "retention_tables", "rollup_tables", "tables", "webhook_tables",
+    "refresh_job_tables", "retention_tables", "rollup_tables", "tables", "webhook_tables",
 ]

@@ -9,14 +9,17 @@ is a re-export.
 
 from __future__ import annotations
 
+import contextlib
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from typing import TypeVar
 
 from sqlalchemy import Connection, Engine, event, text
 from sqlalchemy.exc import DBAPIError, DisconnectionError, InterfaceError, OperationalError, SQLAlchemyError
 from sqlalchemy.exc import TimeoutError as PoolTimeout
 from sqlalchemy.orm import Session, SessionTransaction, sessionmaker
+
+from calibrant.store.engine import READ_OPTION, may_write, read_only, reads_only
 
 __all__ = [
     "UNAVAILABLE_ERRORS",
@@ -28,6 +31,8 @@ __all__ = [
     "after_commit",
     "is_unavailable",
     "ping",
+    "read_only",
+    "reading",
     "run_unit_of_work",
 ]
 
@@ -56,15 +61,21 @@ def run_unit_of_work(sessions: SessionFactory, work: Callable[[Session], T], att
     """Run ``work`` in one transaction and commit; a return means committed.
 
     A deadlock or serialization failure between concurrent transactions is
-    retried: every ingest write is idempotent, so a rerun is harmless.
+    retried: every ingest write is idempotent, so a rerun is harmless. On SQLite, a unit
+    begun deferred (``read_only``: a GET) that wrote and found the write lock taken, or its
+    snapshot outdated by a writer, is run once more as a writer (``BEGIN IMMEDIATE``).
     """
+    upgrade = False  # SQLite: a read-only unit that wrote and met the lock runs again as a writer
     for attempt in range(1, attempts + 1):
-        with sessions() as session:
+        with may_write() if upgrade else contextlib.nullcontext(), sessions() as session:
             try:
                 result = work(session)
                 session.commit()
             except OperationalError as exc:
                 session.rollback()
+                if attempt < attempts and not upgrade and reads_only() and _sqlite_busy(exc):
+                    upgrade = True
+                    continue
                 if attempt == attempts or _sqlstate(exc) not in _RETRYABLE_SQLSTATES:
                     raise
                 time.sleep(0.01 * attempt)
@@ -107,10 +118,29 @@ def _drop_pending(session: Session, previous_transaction: SessionTransaction) ->
         session.info[_AFTER_COMMIT] = []
 
 
+@contextlib.contextmanager
+def reading(engine: Engine) -> Iterator[Connection]:
+    """A connection in a transaction that only reads (deferred on SQLite: it never waits for a writer).
+
+    Ended by a rollback: there is nothing to commit, and a read that tried to write is undone.
+    """
+    with engine.connect().execution_options(**{READ_OPTION: True}) as conn, conn.begin() as tx:
+        yield conn
+        tx.rollback()
+
+
 def ping(engine: Engine) -> None:
     """One round trip; raises ``DatabaseError`` when the database cannot answer."""
     with engine.connect() as conn:
         conn.execute(text("SELECT 1"))
+
+
+# SQLITE_BUSY, and SQLITE_BUSY_SNAPSHOT (a deferred reader that tried to write after a commit)
+_SQLITE_BUSY_CODES = {5, 517}
+
+
+def _sqlite_busy(exc: OperationalError) -> bool:
+    return getattr(exc.orig, "sqlite_errorcode", None) in _SQLITE_BUSY_CODES
 
 
 def _sqlstate(exc: OperationalError) -> str | None:
