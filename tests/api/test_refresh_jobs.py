@@ -100,7 +100,7 @@ def test_post_answers_202_before_the_work_and_a_second_post_meets_the_same_job(
         assert done["errors"] == []
         assert done["finished_at"] is not None
         assert done["progress"]["phase"] == "finished"
-        assert set(done["result"]["jobs"]) == {"refresh", "alarms", "deliver_webhooks"}
+        assert set(done["result"]["jobs"]) == {"refresh", "alarms", "deliver_webhooks", "retention"}
 
         after = client.post("/v1/refresh", params={"wait": "true"})
         assert after.status_code == 200
