@@ -147,7 +147,8 @@ def test_sigkill_keeps_answered_batches_and_never_half_a_batch(db: Database, tmp
                 )
                 assert reply.status_code == 200, reply.text
                 already = per_batch.get(a.name, 0)
-                assert reply.json() == {"accepted": ITEMS - already, "duplicates": already}
+                assert reply.json() == {"accepted": ITEMS - already, "duplicates": already,
+                                        "expired": 0}
             counts = client.get(f"/v1/models/{MODEL}").json()["counts"]
         assert counts["predictions"] == ITEMS * len(attempts)
     finally:
