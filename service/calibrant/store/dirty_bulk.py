@@ -16,10 +16,10 @@ from __future__ import annotations
 
 from collections import defaultdict
 from collections.abc import Sequence
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
-from sqlalchemy import Connection, and_, delete, or_, select, tuple_, update
+from sqlalchemy import Connection
 
 from calibrant.store.dirty import Claim, KeyT, Tier, claim, finish
 
@@ -32,20 +32,23 @@ def claim_many(conn: Connection, tier: Tier[KeyT], keys: Sequence[KeyT], worker:
     ordered = sorted(set(keys))
     if conn.dialect.name != "postgresql":
         return [c for c in (claim(conn, k, worker, now, lease) for k in ordered) if c is not None]
-    t = tier.table
-    when = t.c[tier.time_column]
+    table, when = tier.table.name, tier.time_column
     out: list[Claim[KeyT]] = []
     for i in range(0, len(ordered), _POSTGRES_BATCH):
-        part = ordered[i:i + _POSTGRES_BATCH]
-        free = or_(t.c.claimed_until.is_(None), t.c.claimed_until < now)
-        wanted = and_(_in_keys(tier, part), free)
-        conn.execute(select(t.c.model_id).where(wanted)
-                     .order_by(t.c.model_id, t.c.version, when).with_for_update())
-        rows = conn.execute(
-            update(t).where(wanted).values(claimed_by=worker, claimed_until=now + lease)
-            .returning(t.c.model_id, t.c.version, when, t.c.generation)
+        params = _key_arrays(ordered[i:i + _POSTGRES_BATCH])
+        params.update(now=now, worker=worker, until=now + lease)
+        # Lock in key order first (see the module's note), then take the free ones.
+        rows = conn.exec_driver_sql(
+            f"WITH wanted AS (SELECT d.model_id, d.version, d.{when} FROM {table} d "  # noqa: S608 — names are constants
+            f"JOIN {_KEYS} ON d.model_id = k.m AND d.version = k.v AND d.{when} = k.t "
+            "WHERE d.claimed_until IS NULL OR d.claimed_until < %(now)s "
+            f"ORDER BY d.model_id, d.version, d.{when} FOR UPDATE OF d) "
+            f"UPDATE {table} d SET claimed_by = %(worker)s, claimed_until = %(until)s FROM wanted "
+            f"WHERE d.model_id = wanted.model_id AND d.version = wanted.version AND d.{when} = wanted.{when} "
+            f"RETURNING d.model_id, d.version, d.{when}, d.generation",
+            params,
         )
-        out += [Claim(tier.key_type(m, v, w), int(g), worker) for m, v, w, g in rows]
+        out += [Claim(tier.key_type(m, v, _utc(w)), int(g), worker) for m, v, w, g in rows]
     return sorted(out, key=lambda c: c.key)
 
 
@@ -53,8 +56,7 @@ def finish_many(conn: Connection, tier: Tier[KeyT], claims: Sequence[Claim[KeyT]
     """Clear each mark whose generation is unchanged; release the others. True per clean key."""
     if conn.dialect.name != "postgresql":
         return {c.key: finish(conn, c) for c in sorted(claims, key=lambda c: c.key)}
-    t = tier.table
-    when = t.c[tier.time_column]
+    table, when = tier.table.name, tier.time_column
     out: dict[KeyT, bool] = {}
     by_worker: dict[str, list[Claim[KeyT]]] = defaultdict(list)
     for c in claims:
@@ -63,19 +65,32 @@ def finish_many(conn: Connection, tier: Tier[KeyT], claims: Sequence[Claim[KeyT]
         mine.sort(key=lambda c: c.key)
         for i in range(0, len(mine), _POSTGRES_BATCH):
             part = mine[i:i + _POSTGRES_BATCH]
-            held = and_(_in_keys(tier, [c.key for c in part]), t.c.claimed_by == worker)
-            conn.execute(select(t.c.model_id).where(held)
-                         .order_by(t.c.model_id, t.c.version, when).with_for_update())
-            same = tuple_(t.c.model_id, t.c.version, when, t.c.generation).in_(
-                [(c.key.model_id, c.key.version, c.key.start, c.generation) for c in part])
-            cleared = {tier.key_type(m, v, w) for m, v, w in conn.execute(
-                delete(t).where(held, same).returning(t.c.model_id, t.c.version, when))}
-            conn.execute(update(t).where(held).values(claimed_by=None, claimed_until=None))
+            params = _key_arrays([c.key for c in part])
+            params.update(worker=worker, generations=[c.generation for c in part])
+            held = (f"FROM {_KEYS_WITH_GENERATION} WHERE d.model_id = k.m AND d.version = k.v "
+                    f"AND d.{when} = k.t AND d.claimed_by = %(worker)s")
+            conn.exec_driver_sql(
+                f"SELECT d.model_id FROM {table} d JOIN {_KEYS_WITH_GENERATION} ON d.model_id = k.m "  # noqa: S608 — names are constants
+                f"AND d.version = k.v AND d.{when} = k.t WHERE d.claimed_by = %(worker)s "
+                f"ORDER BY d.model_id, d.version, d.{when} FOR UPDATE OF d", params)
+            cleared = {tier.key_type(m, v, _utc(w)) for m, v, w in conn.exec_driver_sql(
+                f"DELETE FROM {table} d USING {held.removeprefix('FROM ')} AND d.generation = k.g "  # noqa: S608 — names are constants
+                f"RETURNING d.model_id, d.version, d.{when}", params)}
+            conn.exec_driver_sql(
+                f"UPDATE {table} d SET claimed_by = NULL, claimed_until = NULL {held}", params)  # noqa: S608 — names are constants
             out.update({c.key: c.key in cleared for c in part})
     return out
 
 
-def _in_keys(tier: Tier[Any], keys: Sequence[Any]) -> Any:
-    t = tier.table
-    return tuple_(t.c.model_id, t.c.version, t.c[tier.time_column]).in_(
-        [(k.model_id, k.version, k.start) for k in keys])
+_KEYS = "unnest(%(models)s::int[], %(versions)s::text[], %(times)s::timestamptz[]) AS k(m, v, t)"
+_KEYS_WITH_GENERATION = ("unnest(%(models)s::int[], %(versions)s::text[], %(times)s::timestamptz[], "
+                         "%(generations)s::int[]) AS k(m, v, t, g)")
+
+
+def _key_arrays(keys: Sequence[Any]) -> dict[str, Any]:
+    return {"models": [k.model_id for k in keys], "versions": [k.version for k in keys],
+            "times": [k.start for k in keys]}
+
+
+def _utc(instant: datetime) -> datetime:
+    return instant.astimezone(UTC)

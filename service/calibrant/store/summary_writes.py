@@ -36,9 +36,17 @@ def replace_many(conn: Connection, items: Sequence[tuple[Key, Encoded]], now: da
     keys = sorted({k for k, _ in items})
     for i in range(0, len(keys), _BATCH):
         part = keys[i:i + _BATCH]
-        conn.execute(delete(table).where(
-            tuple_(table.c.model_id, table.c.version, table.c[column]).in_(
-                [(k.model_id, k.version, k.start) for k in part])))
+        if conn.dialect.name == "postgresql":  # a hash join with the keys, not a list of OR terms
+            conn.exec_driver_sql(
+                f"DELETE FROM {table.name} s USING unnest(%(models)s::int[], %(versions)s::text[], "  # noqa: S608 — names are constants
+                f"%(times)s::timestamptz[]) AS k(m, v, t) "
+                f"WHERE s.model_id = k.m AND s.version = k.v AND s.{column} = k.t",
+                {"models": [k.model_id for k in part], "versions": [k.version for k in part],
+                 "times": [k.start for k in part]})
+        else:
+            conn.execute(delete(table).where(
+                tuple_(table.c.model_id, table.c.version, table.c[column]).in_(
+                    [(k.model_id, k.version, k.start) for k in part])))
     rows = [(k.model_id, k.version, seg_key, seg_value, k.start, n, payload, now)
             for k, encoded in sorted(items, key=lambda item: item[0])
             for (seg_key, seg_value), (n, payload) in sorted(encoded.items())]
