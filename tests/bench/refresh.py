@@ -59,7 +59,7 @@ _PG_PREDICTIONS = """
 INSERT INTO predictions (model_id, case_id, version, probability, scored_at, tags, received_at)
 SELECT :model_id, 'c' || lpad(g::text, 9, '0'), CASE WHEN g % 2 = 0 THEN 'v1' ELSE 'v2' END,
        1.0 / (1.0 + exp(-(-0.8 + 1.1 * sqrt(-2.0 * ln(1.0 - random())) * cos(2.0 * pi() * random())))),
-       :t0 + floor(random() * 364 * 24 * 3600) * interval '1 second',
+       :t0 + floor(random() * CAST(:days AS int) * 24 * 3600) * interval '1 second',
        '{"channel":"c' || (g % 3) || '","region":"r' || ((g / 3) % 4) || '"}', now()
 FROM generate_series(1, CAST(:n AS bigint)) AS g
 """
@@ -71,7 +71,8 @@ FROM predictions WHERE model_id = :model_id AND random() < 0.85
 """
 _PG_MARK = """
 INSERT INTO dirty_buckets (model_id, version, hour, generation, marked_at)
-SELECT DISTINCT model_id, version, date_trunc('hour', scored_at AT TIME ZONE 'UTC') AT TIME ZONE 'UTC', 1, now()
+SELECT DISTINCT model_id, version,
+       date_trunc('hour', scored_at AT TIME ZONE 'UTC') AT TIME ZONE 'UTC', 1, now()
 FROM predictions WHERE model_id = :model_id
 """
 
@@ -116,10 +117,10 @@ def create_model(engine: sa.Engine) -> int:
             {"n": MODEL, "k": SEGMENT_KEYS, "t": NOW}).scalar())
 
 
-def load_postgres(engine: sa.Engine, model_id: int, n_rows: int) -> None:
+def load_postgres(engine: sa.Engine, model_id: int, n_rows: int, days: int) -> None:
     with engine.begin() as conn:
         conn.exec_driver_sql("SELECT setseed(0.23)")
-        params = {"model_id": model_id, "n": n_rows, "t0": YEAR_START}
+        params = {"model_id": model_id, "n": n_rows, "t0": YEAR_START, "days": days}
         conn.execute(sa.text(_PG_PREDICTIONS), params)
         conn.execute(sa.text(_PG_OUTCOMES), params)
         conn.execute(sa.text(_PG_MARK), params)
@@ -128,12 +129,12 @@ def load_postgres(engine: sa.Engine, model_id: int, n_rows: int) -> None:
         conn.exec_driver_sql("ANALYZE outcomes")
 
 
-def load_sqlite(engine: sa.Engine, model_id: int, n_rows: int) -> None:
+def load_sqlite(engine: sa.Engine, model_id: int, n_rows: int, days: int) -> None:
     """The same distributions as the PostgreSQL loader, generated with numpy."""
     rng = np.random.default_rng(23)
     g = np.arange(1, n_rows + 1)
     p = 1.0 / (1.0 + np.exp(-rng.normal(-0.8, 1.1, n_rows)))
-    seconds = rng.integers(0, 364 * 24 * 3600, n_rows)
+    seconds = rng.integers(0, days * 24 * 3600, n_rows)
     labeled = rng.random(n_rows) < 0.85
     label = (rng.random(n_rows) < p).astype(int)
     start = YEAR_START.replace(tzinfo=None)
@@ -169,7 +170,8 @@ def read_postgres(engine: sa.Engine, model_id: int) -> int:
     row = np.dtype([("n", ">i2"), ("l1", ">i4"), ("v", ">i2"), ("l2", ">i4"), ("t", ">i8"), ("l3", ">i4"),
                     ("p", ">f8"), ("l4", ">i4"), ("y", ">i2"), ("l5", ">i4"), ("tag", ">i4")])
     query = (
-        "SELECT (predictions.version <> 'v1')::int::int2, (date_part('epoch', predictions.scored_at) * 1e6)::int8, "
+        "SELECT (predictions.version <> 'v1')::int::int2, "
+        "(date_part('epoch', predictions.scored_at) * 1e6)::int8, "
         "predictions.probability, coalesce(outcomes.label, -1)::int2, (tag.code - 1)::int4 "
         f"{joined} JOIN unnest(%(tags)s::text[]) WITH ORDINALITY AS tag(text, code) "
         "ON tag.text = coalesce(predictions.tags, '') WHERE predictions.model_id = %(m)s"
@@ -177,7 +179,7 @@ def read_postgres(engine: sa.Engine, model_id: int) -> int:
     n = 0
     with engine.connect().execution_options(isolation_level="REPEATABLE READ") as conn:
         tags = [t for (t,) in conn.exec_driver_sql(
-            f"SELECT DISTINCT coalesce(tags, '') FROM predictions WHERE model_id = %(m)s", {"m": model_id})]
+            "SELECT DISTINCT coalesce(tags, '') FROM predictions WHERE model_id = %(m)s", {"m": model_id})]
         raw = conn.connection.driver_connection
         pending = bytearray()
         header = True
@@ -222,13 +224,14 @@ def read_sqlite(engine: sa.Engine, model_id: int) -> int:
     return int(probability.size)
 
 
-def run(dialect: str, url: str, n_rows: int, *, increments: tuple[float, ...] = (0.01, 0.10)) -> dict[str, Any]:
+def run(dialect: str, url: str, n_rows: int, *, days: int = 364,
+        increments: tuple[float, ...] = (0.01, 0.10)) -> dict[str, Any]:
     engine = make_engine(Settings(database_url=url))
     clock = FixedClock(NOW)
     try:
         model_id = create_model(engine)
         t = time.perf_counter()
-        (load_postgres if dialect == "postgresql" else load_sqlite)(engine, model_id, n_rows)
+        (load_postgres if dialect == "postgresql" else load_sqlite)(engine, model_id, n_rows, days)
         load_s = time.perf_counter() - t
         with engine.connect() as conn:
             n_buckets = int(conn.execute(sa.text("SELECT count(*) FROM dirty_buckets")).scalar() or 0)
@@ -280,17 +283,20 @@ def _aware(instant: Any) -> datetime:
 
 
 def format_result(r: dict[str, Any]) -> str:
+    pad = " " * 10
     lines = [
-        f"{r['dialect']:>10} {r['rows']:>11,} rows {r['buckets']:>6,} buckets ({len(VERSIONS)} versions, "
-        f"2 segment keys, {r['summaries']:,} bucket summaries) | load {r['load_s']:.1f} s",
-        f"{'':>10} read into numpy {r['read_s']:7.2f} s = {r['read_rows_per_s']:>10,.0f} rows/s | "
-        f"full refresh {r['full_s']:7.2f} s = {r['full_rows_per_s']:>10,.0f} rows/s, {r['days']} days merged | "
-        f"ratio to the read {r['ratio']:.2f} | peak memory added {r['memory_added_mib']:.0f} MiB",
+        (f"{r['dialect']:>10} {r['rows']:>11,} rows {r['buckets']:>6,} buckets ({len(VERSIONS)} versions, "
+         f"2 segment keys, {r['summaries']:,} bucket summaries) | load {r['load_s']:.1f} s"),
+        (f"{pad} read into numpy {r['read_s']:7.2f} s = {r['read_rows_per_s']:>10,.0f} rows/s | "
+         f"full refresh {r['full_s']:7.2f} s = {r['full_rows_per_s']:>10,.0f} rows/s, "
+         f"{r['days']} days merged | ratio to the read {r['ratio']:.2f} | "
+         f"peak memory added {r['memory_added_mib']:.0f} MiB"),
     ]
     for inc in r["incremental"]:
         per_row = inc["s"] / max(1, inc["rows"]) * 1e6
-        lines.append(f"{'':>10} {100 * inc['share']:>4.0f} % dirty: {inc['buckets']:,} buckets, {inc['rows']:,} rows, "
-                     f"{inc['days']} days in {inc['s']:.2f} s = {per_row:.1f} µs a dirty row")
+        lines.append(f"{pad} {100 * inc['share']:>4.0f} % dirty: {inc['buckets']:,} buckets, "
+                     f"{inc['rows']:,} rows, {inc['days']} days in {inc['s']:.2f} s "
+                     f"= {per_row:.1f} µs a dirty row")
     return "\n".join(lines)
 
 
@@ -298,20 +304,21 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--postgres", default="1000000", help="comma-separated row counts ('' for none)")
     parser.add_argument("--sqlite", default="1000000", help="comma-separated row counts ('' for none)")
-    parser.add_argument("--small", action="store_true", help="20,000 rows on each database")
+    parser.add_argument("--small", action="store_true", help="20,000 rows over 14 days on each database")
     args = parser.parse_args()
     sizes = {"postgresql": [20_000] if args.small else [int(s) for s in args.postgres.split(",") if s],
              "sqlite": [20_000] if args.small else [int(s) for s in args.sqlite.split(",") if s]}
     base = os.environ.get("CALIBRANT_TEST_POSTGRES_URL", DEFAULT_URL)
+    days = 14 if args.small else 364
     for dialect, counts in sizes.items():
         for n in counts:
             load = os.getloadavg()
             if dialect == "postgresql":
                 with migrated_postgres_schema(base) as url:
-                    result = run(dialect, url, n)
+                    result = run(dialect, url, n, days=days)
             else:
                 with tempfile.TemporaryDirectory() as folder:
-                    result = run(dialect, migrated_sqlite(Path(folder) / "bench.db"), n)
+                    result = run(dialect, migrated_sqlite(Path(folder) / "bench.db"), n, days=days)
             after = os.getloadavg()
             print(format_result(result), flush=True)
             print(f"{'':>10} load average {load[0]:.2f} before, {after[0]:.2f} after, "

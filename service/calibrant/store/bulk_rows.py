@@ -173,8 +173,8 @@ def _sqlite(engine: Engine, model_id: int, spans: list[Span], versions: list[str
         # CROSS JOIN makes SQLite loop over the spans outside, each an index range scan on
         # (model_id, version, scored_at); an OR of the spans would exceed its expression depth.
         query = (
-            f"WITH span(version, lo, hi) AS (VALUES {', '.join(['(?, ?, ?)'] * len(spans))}) "
-            f"SELECT CASE predictions.version {version_case} END, "  # noqa: S608
+            f"WITH span(version, lo, hi) AS (VALUES {', '.join(['(?, ?, ?)'] * len(spans))}) "  # noqa: S608
+            f"SELECT CASE predictions.version {version_case} END, "
             f"CAST(strftime('%s', predictions.scored_at) AS INTEGER) / 3600, predictions.probability, "
             f"coalesce({_label_sql(conn, horizon_days)}, -1), "
             f"{'predictions.tags' if with_tags else 'NULL'} "
