@@ -15,8 +15,7 @@ from datetime import datetime, timedelta
 
 import numpy as np
 
-from calibrant.stats.summary import Summary
-from calibrant.stats.summary_grouped import merged_by_group
+from calibrant.stats.summary_grouped import merged_payloads
 from calibrant.store import dirty, dirty_bulk, summary_writes
 from calibrant.store.dirty import DayKey
 from calibrant.store.unit import Engine
@@ -64,12 +63,10 @@ def merge_days(engine: Engine, now: Callable[[], datetime], days: list[DayKey], 
 
 def _merged(stored: list[tuple[DayKey, str, str, bytes]]) -> dict[DayKey, summary_writes.Encoded]:
     groups: dict[tuple[DayKey, str, str], int] = {}
-    parts = []
-    part_groups = []
-    for day, seg_key, seg_value, payload in stored:
-        parts.append(Summary.from_bytes(payload))
-        part_groups.append(groups.setdefault((day, seg_key, seg_value), len(groups)))
-    ids, merged = merged_by_group(parts, np.asarray(part_groups, dtype=np.int64))
+    part_groups = [groups.setdefault((day, seg_key, seg_value), len(groups))
+                   for day, seg_key, seg_value, _ in stored]
+    payloads = [payload for *_, payload in stored]
+    ids, merged = merged_payloads(payloads, np.asarray(part_groups, dtype=np.int64))
     names = list(groups)
     out: dict[DayKey, summary_writes.Encoded] = {}
     for g, s in zip(ids.tolist(), merged, strict=True):

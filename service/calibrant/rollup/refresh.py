@@ -30,7 +30,7 @@ from calibrant.store.unit import Engine
 
 JOB_NAME = "refresh"
 WRITE_BUCKETS = 500  # buckets per write transaction: SQLite's write lock is held this long at most
-DAY_GROUP = 200  # days claimed, read, merged and written together
+DAY_GROUP = 31  # days claimed, read, merged and written together (bounds the hours held)
 
 
 @dataclass

@@ -20,8 +20,13 @@ from __future__ import annotations
 import numpy as np
 
 from calibrant.stats.summary import (
+    _FLAG_WEIGHTED,
+    _HEADER,
+    _MAGIC,
     _N_CELLS,
     _N_CLASSES,
+    FORMAT_VERSION,
+    N_BINS,
     N_FIELDS,
     NEGATIVE,
     POSITIVE,
@@ -31,7 +36,7 @@ from calibrant.stats.summary import (
     bin_index,
 )
 
-__all__ = ["grouped_summaries", "merged_by_group"]
+__all__ = ["grouped_summaries", "merged_by_group", "merged_payloads"]
 
 
 def grouped_summaries(
@@ -85,6 +90,49 @@ def merged_by_group(parts: list[Summary], part_groups: np.ndarray) -> tuple[np.n
     for j in range(N_FIELDS):
         fields[:, j] = np.bincount(inverse, weights=values[:, j], minlength=keys.size)
     return _split(keys, fields, weighted=weighted)
+
+
+def merged_payloads(payloads: list[bytes], part_groups: np.ndarray) -> tuple[np.ndarray, list[Summary]]:
+    """:func:`merged_by_group` of stored summaries (``Summary.to_bytes``), decoded in bulk.
+
+    Each payload's header is checked as :meth:`Summary.from_bytes` checks it; the cell ids
+    and field values of all payloads are then checked and summed at once, without building
+    a Summary per payload.
+    """
+    if len(payloads) != len(part_groups):
+        raise ValueError("one group per summary")
+    cells_parts, field_parts, group_parts = [], [], []
+    weighted: set[bool] = set()
+    for payload, group in zip(payloads, np.asarray(part_groups, dtype=np.int64).tolist(), strict=True):
+        if len(payload) < _HEADER.size:
+            raise ValueError("summary bytes too short")
+        magic, version, flags, n_fields, n_bins, m = _HEADER.unpack_from(payload)
+        if magic != _MAGIC or version != FORMAT_VERSION:
+            raise ValueError(f"not a version-{FORMAT_VERSION} summary")
+        if n_fields != N_FIELDS or n_bins != N_BINS:
+            raise ValueError("summary was written with a different grid or field list")
+        if len(payload) != _HEADER.size + m * (2 + 8 * N_FIELDS):
+            raise ValueError("summary bytes have the wrong length")
+        if m == 0:
+            continue
+        weighted.add(bool(flags & _FLAG_WEIGHTED))
+        cells_parts.append(np.frombuffer(payload, dtype="<i2", count=m, offset=_HEADER.size))
+        field_parts.append(np.frombuffer(payload, dtype="<f8", count=m * N_FIELDS,
+                                         offset=_HEADER.size + 2 * m))
+        group_parts.append(np.full(m, group, np.int64))
+    if not cells_parts:
+        return np.empty(0, np.int64), []
+    if len(weighted) > 1:
+        raise ValueError("cannot merge weighted with unweighted summaries (docs/methods.md §2)")
+    cells = np.concatenate(cells_parts).astype(np.int64)
+    values = np.concatenate(field_parts).reshape(-1, N_FIELDS)
+    if cells.min() < 0 or cells.max() >= _N_CELLS or not np.all(np.isfinite(values)):
+        raise ValueError("stored summaries hold cells outside the grid or non-finite sums")
+    keys, inverse = np.unique(np.concatenate(group_parts) * _N_CELLS + cells, return_inverse=True)
+    fields = np.empty((keys.size, N_FIELDS))
+    for j in range(N_FIELDS):
+        fields[:, j] = np.bincount(inverse, weights=values[:, j], minlength=keys.size)
+    return _split(keys, fields, weighted=weighted.pop())
 
 
 def _split(keys: np.ndarray, fields: np.ndarray, *,
