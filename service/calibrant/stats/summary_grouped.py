@@ -141,10 +141,14 @@ def _split(keys: np.ndarray, fields: np.ndarray, *,
     keys, fields = keys[nonempty], fields[nonempty]
     if keys.size == 0:
         return np.empty(0, np.int64), []
+    if not np.all(np.isfinite(fields)):
+        raise ValueError("summary fields must be finite")
     group_of_key = keys // _N_CELLS
     starts = np.concatenate(([0], np.flatnonzero(np.diff(group_of_key)) + 1))
     ends = np.append(starts[1:], keys.size)
+    # keys are sorted and unique, so within a group the cell ids strictly increase, and each
+    # is in [0, _N_CELLS): the checks of Summary's constructor hold for every group at once
     cells = keys % _N_CELLS
-    summaries = [Summary(cells[a:b], fields[a:b], weighted=weighted)
-                 for a, b in zip(starts, ends, strict=True)]
+    summaries = [Summary._checked_elsewhere(cells[a:b], np.ascontiguousarray(fields[a:b]), weighted)
+                 for a, b in zip(starts.tolist(), ends.tolist(), strict=True)]
     return group_of_key[starts], summaries
