@@ -89,6 +89,7 @@ def summarised(engine: Engine, model_id: int, claims: list[Claim[BucketKey]],
     decoder = _TagDecoder(list(book.keys))
     pending = sorted(claims, key=lambda c: (c.key.hour, c.key.version))
     rows_read = buckets_read = 0
+    tags: list[str] | None = None
     i = 0
     while i < len(pending):
         if buckets_read:
@@ -98,7 +99,8 @@ def summarised(engine: Engine, model_id: int, claims: list[Claim[BucketKey]],
             n = FIRST_CHUNK_BUCKETS
         part = pending[i:i + n]
         i += len(part)
-        rows = range_rows(engine, model_id, _spans(part), horizon, with_tags=bool(book.keys))
+        rows = range_rows(engine, model_id, _spans(part), horizon, with_tags=bool(book.keys), known_tags=tags)
+        tags = rows.tag_texts
         rows_read += rows.size
         buckets_read += len(part)
         yield book, summarise_rows(rows, part, book, decoder)

@@ -72,11 +72,16 @@ def hours_since_epoch(instant: datetime) -> int:
 
 
 def range_rows(engine: Engine, model_id: int, spans: list[Span], horizon_days: int | None,
-               with_tags: bool) -> RangeRows:
-    """Every prediction scored in one of ``spans`` of the model, joined with its outcome."""
+               with_tags: bool, known_tags: list[str] | None = None) -> RangeRows:
+    """Every prediction scored in one of ``spans`` of the model, joined with its outcome.
+
+    ``known_tags``: the tag strings of the previous chunk. On PostgreSQL the rows are first
+    numbered against them, and the range's own distinct strings are read only when a row
+    carries one they lack (most chunks of a model share their tags).
+    """
     versions = sorted({s.version for s in spans})
     if engine.dialect.name == "postgresql":
-        return _postgres(engine, model_id, spans, versions, horizon_days, with_tags)
+        return _postgres(engine, model_id, spans, versions, horizon_days, with_tags, known_tags)
     return _sqlite(engine, model_id, spans, versions, horizon_days, with_tags)
 
 
@@ -90,7 +95,7 @@ _JOIN_OUTCOMES = ("LEFT OUTER JOIN outcomes ON outcomes.model_id = predictions.m
 
 
 def _postgres(engine: Engine, model_id: int, spans: list[Span], versions: list[str],
-              horizon_days: int | None, with_tags: bool) -> RangeRows:
+              horizon_days: int | None, with_tags: bool, known_tags: list[str] | None) -> RangeRows:
     params: dict[str, Any] = {
         "model_id": model_id,
         "versions": [s.version for s in spans],
@@ -109,30 +114,28 @@ def _postgres(engine: Engine, model_id: int, spans: list[Span], versions: list[s
         "AND predictions.scored_at < span.hi OFFSET 0) AS predictions"
     )
     with engine.connect().execution_options(isolation_level="REPEATABLE READ") as conn:
-        tag_texts = [""]
-        tag_column, tag_join = "0::int4", ""
-        if with_tags:
-            tag_texts = [t for (t,) in conn.exec_driver_sql(
-                f"SELECT DISTINCT coalesce(predictions.tags, '') {in_spans}", params)]
-            params["tags"] = tag_texts
-            tag_column = "(tag.code - 1)::int4"
-            tag_join = ("JOIN unnest(%(tags)s::text[]) WITH ORDINALITY AS tag(text, code) "
-                        "ON tag.text = coalesce(predictions.tags, '')")
-        query = (
-            f"SELECT span.code, {_PG_HOUR}, "
-            f"predictions.probability, coalesce({_label_sql(conn, horizon_days)}, -1)::int2, {tag_column} "
-            f"{in_spans} {_JOIN_OUTCOMES} {tag_join}"
-        )
-        if not with_tags:
-            conn.exec_driver_sql("SELECT 1")  # begin the transaction at its isolation level
+        conn.exec_driver_sql("SELECT 1")  # begin the transaction at its isolation level
+        label = _label_sql(conn, horizon_days)
         raw = conn.connection.driver_connection
         assert raw is not None
-        blocks: list[bytes] = []
-        with raw.cursor() as cur, cur.copy(f"COPY ({query}) TO STDOUT (FORMAT BINARY)", params) as copy:
-            blocks.extend(bytes(block) for block in copy)
+        tag_texts = list(known_tags or []) if with_tags else [""]
+        data = b""
+        for attempt in range(2):
+            if with_tags and (attempt or not tag_texts):
+                tag_texts = [t for (t,) in conn.exec_driver_sql(
+                    f"SELECT DISTINCT coalesce(predictions.tags, '') {in_spans}", params)]
+            params["tags"] = tag_texts
+            # a row whose tag string is not in the list gets −1 (LEFT JOIN), and the list is read
+            tag_column = "coalesce(tag.code - 1, -1)::int4" if with_tags else "0::int4"
+            tag_join = ("LEFT JOIN unnest(%(tags)s::text[]) WITH ORDINALITY AS tag(text, code) "
+                        "ON tag.text = coalesce(predictions.tags, '')") if with_tags else ""
+            query = (f"SELECT span.code, {_PG_HOUR}, predictions.probability, coalesce({label}, -1)::int2, "
+                     f"{tag_column} {in_spans} {_JOIN_OUTCOMES} {tag_join}")
+            with raw.cursor() as cur, cur.copy(f"COPY ({query}) TO STDOUT (FORMAT BINARY)", params) as copy:
+                data = b"".join([bytes(block) for block in copy])
+            if not with_tags or not np.any(_parse_binary_copy(data)["tag"] == -1):
+                break
         conn.rollback()
-    data = b"".join(blocks)
-    del blocks
     rows = _parse_binary_copy(data)
     return RangeRows(
         versions=versions,

@@ -9,8 +9,9 @@ only the claim holder writes a bucket), ``executemany`` on SQLite.
 
 from __future__ import annotations
 
+import struct
 from collections.abc import Sequence
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta
 from typing import cast
 
 from sqlalchemy import Connection, Table, and_, delete, insert, or_, select, tuple_
@@ -19,7 +20,9 @@ from calibrant.store.dirty import DayKey, Key
 from calibrant.store.rollup_tables import BucketSummary, DaySummary, DirtyBucket
 
 Encoded = dict[tuple[str, str], tuple[int, bytes]]  # per segment: (rows summarised, Summary bytes)
-_COPY_TYPES = ["int4", "varchar", "varchar", "varchar", "timestamptz", "int4", "bytea", "timestamptz"]
+_PG_EPOCH = datetime(2000, 1, 1, tzinfo=UTC)  # PostgreSQL's binary timestamps count µs from here
+_INT4 = struct.Struct(">ii")  # field length 4, value
+_TIME = struct.Struct(">iq")  # field length 8, µs since _PG_EPOCH
 _BATCH = 5000  # keys per DELETE statement
 
 
@@ -58,13 +61,35 @@ def replace_many(conn: Connection, items: Sequence[tuple[Key, Encoded]], now: da
         columns = f"model_id, version, segment_key, segment_value, {column}, n, payload, computed_at"
         statement = f"COPY {table.name} ({columns}) FROM STDIN (FORMAT BINARY)"
         with raw.cursor() as cur, cur.copy(statement) as copy:
-            copy.set_types(_COPY_TYPES)
-            for row in rows:
-                copy.write_row(row)
+            for i in range(0, len(rows), 1000):
+                copy.write(_binary_copy(rows[i:i + 1000], header=i == 0, trailer=i + 1000 >= len(rows)))
     else:
         names = ("model_id", "version", "segment_key", "segment_value", column, "n", "payload", "computed_at")
         conn.execute(insert(table), [dict(zip(names, row, strict=True)) for row in rows])
     return len(rows)
+
+
+def _binary_copy(rows: list[tuple], *, header: bool, trailer: bool) -> bytes:
+    """Rows (model_id, version, segment key, segment value, start, n, payload, computed_at) in
+    PostgreSQL's binary COPY format, built here: psycopg's write_row cost 20 µs a row."""
+    out = [b"PGCOPY\n\xff\r\n\x00" + bytes(8)] if header else []
+    computed = None
+    for model_id, version, seg_key, seg_value, start, n, payload, now in rows:
+        if computed is None:
+            computed = _TIME.pack(8, _micros(now))
+        v, k, s = version.encode(), seg_key.encode(), seg_value.encode()
+        out += [b"\x00\x08", _INT4.pack(4, model_id),
+                len(v).to_bytes(4, "big"), v, len(k).to_bytes(4, "big"), k, len(s).to_bytes(4, "big"), s,
+                _TIME.pack(8, _micros(start)), _INT4.pack(4, n),
+                len(payload).to_bytes(4, "big"), payload, computed]
+    if trailer:
+        out.append(b"\xff\xff")
+    return b"".join(out)
+
+
+def _micros(instant: datetime) -> int:
+    delta = instant - _PG_EPOCH
+    return (delta.days * 86_400 + delta.seconds) * 1_000_000 + delta.microseconds
 
 
 def hours_of_days(conn: Connection, days: Sequence[DayKey]) -> list[tuple[DayKey, str, str, bytes]]:
