@@ -172,7 +172,7 @@ def _sqlite(engine: Engine, model_id: int, spans: list[Span], versions: list[str
     params += versions
     params.append(model_id)
     version_case = " ".join(f"WHEN ? THEN {i}" for i in range(len(versions)))
-    with engine.begin() as conn:
+    with engine.connect() as conn:
         # CROSS JOIN makes SQLite loop over the spans outside, each an index range scan on
         # (model_id, version, scored_at); an OR of the spans would exceed its expression depth.
         query = (
@@ -185,7 +185,16 @@ def _sqlite(engine: Engine, model_id: int, spans: list[Span], versions: list[str
             f"WHERE predictions.model_id = ? AND predictions.version = span.version "
             f"AND predictions.scored_at >= span.lo AND predictions.scored_at < span.hi"
         )
-        rows = conn.exec_driver_sql(query, tuple(params)).fetchall()
+        # Straight on the driver's connection, outside any BEGIN: the engine opens every
+        # transaction with BEGIN IMMEDIATE (the write lock); a lone SELECT in autocommit mode
+        # reads a WAL snapshot and leaves ingest and other writers free meanwhile.
+        raw = conn.connection.driver_connection
+        assert raw is not None
+        cursor = raw.execute(query, tuple(params))
+        try:
+            rows = cursor.fetchall()
+        finally:
+            cursor.close()
     codes: dict[str, int] = {}
     if rows:
         v, h, p, y, t = zip(*rows, strict=True)
