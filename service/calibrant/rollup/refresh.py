@@ -24,7 +24,7 @@ from calibrant.clock import Clock
 from calibrant.rollup import bulk_days, bulk_refresh
 from calibrant.rollup.compute import SegmentBook, summarise_bucket
 from calibrant.stats.summary import Summary
-from calibrant.store import dirty, dirty_bulk, rollup_repo, summary_writes
+from calibrant.store import dirty, dirty_bulk, rollup_repo, summary_writes, table_statistics
 from calibrant.store.dirty import BucketKey, DayKey, day_of
 from calibrant.store.unit import Engine
 
@@ -98,6 +98,8 @@ def refresh_dirty(
         # query skips what is claimed, so look again rather than stop.
         if not progressed and not (keys and report.busy > busy_before):
             break
+    if report.rows_read:  # what ingest or import changed is read next: plan it on fresh statistics
+        table_statistics.analyze_if_stale(engine, clock.now())
     with engine.begin() as conn:
         rollup_repo.record_job_run(
             conn, JOB_NAME, worker, started, clock.now(), report.buckets, report.rows_read
