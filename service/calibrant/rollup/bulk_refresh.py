@@ -27,10 +27,12 @@ from calibrant.stats.summary import Summary
 from calibrant.stats.summary_grouped import grouped_summaries
 from calibrant.store import rollup_repo
 from calibrant.store.bulk_rows import RangeRows, Span, hours_since_epoch, range_rows
+from calibrant.store.bulk_stream import stream_range_rows
 from calibrant.store.dirty import BucketKey, Claim
 from calibrant.store.unit import Engine
 from calibrant.vocabulary.segments import ALL_SEGMENT
 
+STREAM_MAX_SPANS = 32  # runs of hours up to which a claim is read as one ordered stream
 FIRST_CHUNK_BUCKETS = 64  # before any bucket has been read, its size is unknown
 MAX_CHUNK_BUCKETS = 2000  # bounds the statement's list of spans
 HOUR = timedelta(hours=1)
@@ -88,6 +90,10 @@ def summarised(engine: Engine, model_id: int, claims: list[Claim[BucketKey]],
         horizon = rollup_repo.horizon_days(conn, model_id)
     decoder = _TagDecoder(list(book.keys))
     pending = sorted(claims, key=lambda c: (c.key.hour, c.key.version))
+    spans = _spans(pending)
+    if engine.dialect.name == "postgresql" and len(spans) <= STREAM_MAX_SPANS:
+        yield from _streamed(engine, model_id, pending, spans, horizon, book, decoder, chunk_rows)
+        return
     rows_read = buckets_read = 0
     tags: list[str] | None = None
     i = 0
@@ -104,6 +110,26 @@ def summarised(engine: Engine, model_id: int, claims: list[Claim[BucketKey]],
         rows_read += rows.size
         buckets_read += len(part)
         yield book, summarise_rows(rows, part, book, decoder)
+
+
+def _streamed(engine: Engine, model_id: int, pending: list[Claim[BucketKey]], spans: list[Span],
+              horizon: int | None, book: SegmentBook, decoder: _TagDecoder,
+              chunk_rows: int) -> Iterator[tuple[SegmentBook, list[BucketResult]]]:
+    """A claim of few long runs of hours (a full refresh): one ordered stream, cut between buckets."""
+    versions = sorted({c.key.version for c in pending})
+    order = [(hours_since_epoch(c.key.hour), versions.index(c.key.version)) for c in pending]
+    done = 0
+    for rows in stream_range_rows(engine, model_id, spans, horizon, bool(book.keys), chunk_rows):
+        last = (int(rows.hour[-1]), int(rows.version_code[-1]))
+        upto = done
+        while upto < len(pending) and order[upto] <= last:
+            upto += 1
+        yield book, summarise_rows(rows, pending[done:upto], book, decoder)
+        done = upto
+    if done < len(pending):  # claimed buckets with no rows left: their summaries go
+        empty = RangeRows(versions, np.empty(0, np.int16), np.empty(0, np.int64), np.empty(0),
+                          np.empty(0, np.int8), np.empty(0, np.int64), [""])
+        yield book, summarise_rows(empty, pending[done:], book, decoder)
 
 
 def _spans(claims: list[Claim[BucketKey]]) -> list[Span]:

@@ -153,11 +153,16 @@ def _parse_binary_copy(data: bytes) -> np.ndarray:
     if not data.startswith(_PG_HEADER):
         raise ValueError("not a PostgreSQL binary COPY stream")
     extension = int.from_bytes(data[15:19], "big")
-    start = 19 + extension
-    body = len(data) - start - 2  # the trailer is a 16-bit −1
-    if body % _PG_ROW.itemsize or data[-2:] != b"\xff\xff":
+    if data[-2:] != b"\xff\xff":
+        raise ValueError("binary COPY stream has no trailer")
+    return _parse_rows(data[19 + extension:-2])
+
+
+def _parse_rows(body: bytes) -> np.ndarray:
+    """Whole fixed-width tuples of a binary COPY stream as a record array (checked)."""
+    if len(body) % _PG_ROW.itemsize:
         raise ValueError("binary COPY stream has an unexpected row layout")
-    rows = np.frombuffer(data, dtype=_PG_ROW, count=body // _PG_ROW.itemsize, offset=start)
+    rows = np.frombuffer(body, dtype=_PG_ROW)
     unexpected = any(np.any(rows[k] != n) for k, n in _PG_LENGTHS.items())
     if rows.size and (np.any(rows["n"] != 5) or unexpected):
         raise ValueError("binary COPY stream has an unexpected column layout")
