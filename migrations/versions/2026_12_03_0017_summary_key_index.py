@@ -1,4 +1,4 @@
-"""Summaries of one (model, version) by their hour or day: an index the set-based refresh deletes and reads by.
+"""Summaries of one (model, version) by hour or day: an index the set-based refresh deletes and reads by.
 
 The primary keys of ``bucket_summaries`` and ``day_summaries`` lead with (model_id, version,
 segment_key, segment_value), so a statement that names the hour (or day) but not the segment
