@@ -68,6 +68,7 @@ bench: $(STAMP)
 	$(BIN)/python -m tests.bench.coverage
 	$(BIN)/python -m tests.bench.delay
 	$(BIN)/python -m tests.bench.import
+	$(BIN)/python -m tests.bench.refresh
 
 clean:
 	rm -rf $(VENV) var .pytest_cache

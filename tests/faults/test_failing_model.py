@@ -2,8 +2,8 @@
 
 The fault is injected in the summarising step of the refresh for one model only: the
 model "broken" declares the segment key ``lane`` and "sound" declares none, and the
-wrapped ``summarise_bucket`` raises when it is handed the book of a model keyed by
-``lane``. The jobs then run as the scheduler runs them (``jobs.run_all``), under a
+wrapped ``summarise_rows`` of the set-based refresh raises when it is handed the book of a
+model keyed by ``lane``. The jobs then run as the scheduler runs them (``jobs.run_all``), under a
 FixedClock, so every backoff step is reached exactly, without sleeping.
 
 Expected backoff (``models.isolation.Backoff``, the usual doubling schedule): after the
@@ -30,8 +30,9 @@ from calibrant.logs import JsonFormatter
 from calibrant.models.isolation import Backoff, ModelGuard
 from calibrant.notify import jobs as notify_jobs
 from calibrant.notify.senders import RecordingSender
+from calibrant.rollup import bulk_refresh
 from calibrant.rollup import refresh as refresh_module
-from calibrant.store import keys_repo, rollup_repo
+from calibrant.store import keys_repo, summary_writes
 from calibrant.store.alarm_tables import AlarmModelState
 from calibrant.store.dirty import DayKey
 from calibrant.store.engine import make_session_factory
@@ -146,15 +147,15 @@ def _isolate_backoff_quarantine_resume(db: Database, clock: FixedClock, client: 
     add_events(sessions, "broken", 1, START)
 
     calls = {"broken": 0}
-    real_summarise = refresh_module.summarise_bucket
+    real_summarise = bulk_refresh.summarise_rows
 
-    def summarise(chunks, book):
+    def summarise(rows, claims, book, decoder):
         if book.keys == ["lane"]:
             calls["broken"] += 1
             raise RuntimeError("injected fault in a bucket of the lane-keyed model")
-        return real_summarise(chunks, book)
+        return real_summarise(rows, claims, book, decoder)
 
-    monkeypatch.setattr(refresh_module, "summarise_bucket", summarise)
+    monkeypatch.setattr(bulk_refresh, "summarise_rows", summarise)
     sender = RecordingSender()
     ctx = _context(db, clock, sender)
 
@@ -176,7 +177,7 @@ def _isolate_backoff_quarantine_resume(db: Database, clock: FixedClock, client: 
                                      ("sound", "excess-log-loss"), ("sound", "excess-log-loss"),
                                      ("sound", "feed-starvation")]
     assert report["jobs"]["refresh"]["buckets"] == 2  # sound's two hours
-    assert calls["broken"] == 2  # once in the shared group, once alone (the redo model by model)
+    assert calls["broken"] == 1  # each model's claimed buckets are one unit: one call, one failure
 
     # Recorded, shown as degraded, logged as one JSON line naming model and job.
     (failure,) = _failures(client)
@@ -201,7 +202,7 @@ def _isolate_backoff_quarantine_resume(db: Database, clock: FixedClock, client: 
         assert calls["broken"] == before, f"retried before {wait} s had passed"
         clock.advance(timedelta(seconds=1))
         jobs.run_all(ctx)
-        assert calls["broken"] == before + 1  # alone now: one call per attempt
+        assert calls["broken"] == before + 1  # one call per attempt
         (failure,) = _failures(client)
         assert failure["attempts"] == attempt
     assert failure["quarantined"] is True
@@ -223,7 +224,7 @@ def _isolate_backoff_quarantine_resume(db: Database, clock: FixedClock, client: 
     assert 'calibrant_job_failed_attempts{job="refresh",model="broken"} 5.0' in scraped
 
     # An admin resumes it (audited); with the fault gone the next run refreshes it.
-    monkeypatch.setattr(refresh_module, "summarise_bucket", real_summarise)
+    monkeypatch.setattr(bulk_refresh, "summarise_rows", real_summarise)
     assert client.post("/v1/models/nowhere/resume").status_code == 404
     resumed = client.post("/v1/models/broken/resume")
     assert resumed.status_code == 200, resumed.text
@@ -304,14 +305,14 @@ def test_a_day_that_cannot_be_merged_holds_back_only_its_model(
     clock = FixedClock(START)
     with _two_models(db, clock) as client:
         sound, broken = _model_id(db, "sound"), _model_id(db, "broken")
-        real_hours_of_day = rollup_repo.hours_of_day
+        real_hours_of_days = summary_writes.hours_of_days
 
-        def hours_of_day(conn: sa.Connection, key: DayKey) -> list:
-            if key.model_id == broken:
+        def hours_of_days(conn: sa.Connection, keys: list[DayKey]) -> list:
+            if any(key.model_id == broken for key in keys):
                 raise ZeroDivisionError("injected fault in a day of the broken model")
-            return real_hours_of_day(conn, key)
+            return real_hours_of_days(conn, keys)
 
-        monkeypatch.setattr(rollup_repo, "hours_of_day", hours_of_day)
+        monkeypatch.setattr(summary_writes, "hours_of_days", hours_of_days)
         guard = ModelGuard(db.engine, clock, refresh_module.JOB_NAME, Backoff(60, 300, 5))
         report = refresh_module.refresh_dirty(db.engine, clock, worker="test", guard=guard)
 

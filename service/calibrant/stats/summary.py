@@ -181,6 +181,19 @@ class Summary:
 
     # ------------------------------------------------------------------ building
     @classmethod
+    def _checked_elsewhere(cls, cells: np.ndarray, fields: np.ndarray, weighted: bool) -> Summary:
+        """Wrap int64 cell ids and float64 sums whose checks (strictly increasing ids in the grid,
+        finite sums, the right shape) the caller made once for many summaries at a time
+        (``stats.summary_grouped``): 25 µs a summary of checks was a tenth of a refresh."""
+        summary = cls.__new__(cls)
+        cells.setflags(write=False)
+        fields.setflags(write=False)
+        summary._cells = cells
+        summary._fields = fields
+        summary._weighted = bool(weighted) and cells.size > 0
+        return summary
+
+    @classmethod
     def empty(cls) -> Summary:
         return cls(np.empty(0, np.int64), np.empty((0, N_FIELDS)))
 

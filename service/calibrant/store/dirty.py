@@ -4,7 +4,8 @@ Two tiers use the same protocol (mark → claim → recompute → clear if the
 generation is unchanged): hourly buckets, marked by ingest and rebuilt from raw
 rows, and days, marked when one of their hours is stored and rebuilt by merging
 those hours. Every statement on ``dirty_buckets`` and ``dirty_days`` lives here,
-so the protocol reads in one place; the key type says which table a call means.
+so the protocol reads in one place (``store.dirty_bulk`` holds the same claim and clear for
+many keys per statement); the key type says which table a call means.
 """
 
 from __future__ import annotations

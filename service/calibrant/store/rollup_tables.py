@@ -56,7 +56,10 @@ class BucketSummary(_SummaryRow, Base):
 
     hour: Mapped[datetime] = mapped_column(primary_key=True)
 
-    __table_args__ = (Index(None, "model_id", "segment_key", "segment_value", "hour"),)
+    # The second index serves statements that name the hour but not the segment (replacing a
+    # bucket's summaries, merging a day): the primary key puts the segment before the hour.
+    __table_args__ = (Index(None, "model_id", "segment_key", "segment_value", "hour"),
+                      Index(None, "model_id", "version", "hour"))
 
 
 class DirtyBucket(_DirtyMark, Base):
@@ -74,7 +77,8 @@ class DaySummary(_SummaryRow, Base):
 
     day: Mapped[datetime] = mapped_column(primary_key=True)
 
-    __table_args__ = (Index(None, "model_id", "segment_key", "segment_value", "day"),)
+    __table_args__ = (Index(None, "model_id", "segment_key", "segment_value", "day"),
+                      Index(None, "model_id", "version", "day"))
 
 
 class DirtyDay(_DirtyMark, Base):
