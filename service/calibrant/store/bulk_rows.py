@@ -66,6 +66,19 @@ class RangeRows:
     def size(self) -> int:
         return int(self.probability.size)
 
+    @classmethod
+    def from_parsed(cls, rows: np.ndarray, versions: list[str], tag_texts: list[str]) -> RangeRows:
+        """From the structured array of a parsed binary COPY (``_parse_rows``)."""
+        return cls(
+            versions=versions,
+            version_code=rows["version"].astype(np.int16),
+            hour=rows["hour"].astype(np.int64),
+            probability=rows["p"].astype(np.float64),
+            label=rows["label"].astype(np.int8),
+            tag_code=rows["tag"].astype(np.int64),
+            tag_texts=tag_texts,
+        )
+
 
 def hours_since_epoch(instant: datetime) -> int:
     return int((instant - _EPOCH).total_seconds()) // 3600
@@ -136,16 +149,7 @@ def _postgres(engine: Engine, model_id: int, spans: list[Span], versions: list[s
             if not with_tags or not np.any(_parse_binary_copy(data)["tag"] == -1):
                 break
         conn.rollback()
-    rows = _parse_binary_copy(data)
-    return RangeRows(
-        versions=versions,
-        version_code=rows["version"].astype(np.int16),
-        hour=rows["hour"].astype(np.int64),
-        probability=rows["p"].astype(np.float64),
-        label=rows["label"].astype(np.int8),
-        tag_code=rows["tag"].astype(np.int64),
-        tag_texts=tag_texts,
-    )
+    return RangeRows.from_parsed(_parse_binary_copy(data), versions, tag_texts)
 
 
 def _parse_binary_copy(data: bytes) -> np.ndarray:

@@ -80,13 +80,13 @@ def stream_range_rows(engine: Engine, model_id: int, spans: list[Span], horizon_
                     if keep == 0:  # one bucket larger than a chunk: wait for its end
                         continue
                     del pending[:keep * size]
-                    yield _range(rows[:keep], versions, tag_texts)
+                    yield RangeRows.from_parsed(rows[:keep], versions, tag_texts)
         if pending[-2:] != b"\xff\xff":
             raise ValueError("binary COPY stream has no trailer")
         rows = _parse_rows(bytes(pending[:-2]))
         conn.rollback()
     if rows.size:
-        yield _range(rows, versions, tag_texts)
+        yield RangeRows.from_parsed(rows, versions, tag_texts)
 
 
 def _last_bucket_start(rows: np.ndarray) -> int:
@@ -94,15 +94,3 @@ def _last_bucket_start(rows: np.ndarray) -> int:
     last = (rows["hour"][-1], rows["version"][-1])
     same = (rows["hour"] == last[0]) & (rows["version"] == last[1])
     return int(np.argmax(same))
-
-
-def _range(rows: np.ndarray, versions: list[str], tag_texts: list[str]) -> RangeRows:
-    return RangeRows(
-        versions=versions,
-        version_code=rows["version"].astype(np.int16),
-        hour=rows["hour"].astype(np.int64),
-        probability=rows["p"].astype(np.float64),
-        label=rows["label"].astype(np.int8),
-        tag_code=rows["tag"].astype(np.int64),
-        tag_texts=tag_texts,
-    )
