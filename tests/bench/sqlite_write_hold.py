@@ -2,15 +2,16 @@
 
     .venv/bin/python -m tests.bench.sqlite_write_hold [--hours N] [--rows N] [--segments N]
 
-A model with ``--hours`` hour buckets of ``--rows`` predictions each (every one labelled),
-tagged with two segment keys (``--segments`` values each), then every job run once to the end
-(``jobs.run_all``, as a refresh job runs it): the rollup's refresh with its defaults (25
-buckets a group), the alarm job, webhook delivery. Each transaction is timed from its BEGIN
-(for a write, the moment the write lock is taken: ``BEGIN IMMEDIATE`` returns holding it) to
-its COMMIT or ROLLBACK, and filed under the phase that ran it. Printed per phase: write
-transactions (they hold the lock; reads wait for none of it since reads begin deferred), and
-read transactions (the recompute's reading and summing, which before this change also held
-the write lock). The figure to state is the longest write transaction of the refresh phase.
+A model with ``--hours`` hour buckets of ``--rows`` predictions each (every one labelled), tagged
+with two segment keys (``--segments`` values each), then every job run once to the end
+(``jobs.run_all``, as a refresh job runs it): the rollup's refresh with its defaults (set-based, at
+most ``refresh.WRITE_BUCKETS`` buckets a write transaction), the alarm job, webhook delivery. Each
+transaction is timed from its BEGIN (for a write, the moment the write lock is taken: ``BEGIN
+IMMEDIATE`` returns holding it) to its COMMIT or ROLLBACK, and filed under the phase that ran it.
+Printed per phase: write transactions (they hold the lock; reads wait for none of it since reads
+begin deferred), and read transactions (the recompute's reading and summing, which before this
+change also held the write lock). The figure to state is the longest write transaction of the
+refresh phase.
 """
 
 from __future__ import annotations
