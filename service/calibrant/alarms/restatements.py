@@ -28,7 +28,7 @@ from calibrant.store.unit import Session
 
 
 def _instant(text: str) -> datetime:
-    return datetime.fromisoformat(text.replace("Z", "+00:00"))
+    return datetime.fromisoformat(text)  # Python 3.11 reads the "Z" suffix itself
 
 
 def restate(session: Session, model: Model, now: datetime) -> int:

@@ -18,7 +18,7 @@ Figure = dict[str, Any]
 
 
 def plot_time(value: datetime | str) -> str:
-    instant = datetime.fromisoformat(value.replace("Z", "+00:00")) if isinstance(value, str) else value
+    instant = datetime.fromisoformat(value) if isinstance(value, str) else value
     return instant.astimezone(UTC).strftime("%Y-%m-%d %H:%M:%S")
 
 

@@ -80,7 +80,7 @@ class OutcomeDelay:
     @classmethod
     def from_json(cls, doc: dict[str, Any]) -> OutcomeDelay:
         return cls(
-            measured_at=datetime.fromisoformat(doc["measured_at"].replace("Z", "+00:00")),
+            measured_at=datetime.fromisoformat(doc["measured_at"]),
             reports=_dist_from(doc["reports"]),
             events=None if doc["events"] is None else _dist_from(doc["events"]),
             late_event_share=doc["late_event_share"],
